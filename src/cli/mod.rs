@@ -1,0 +1,64 @@
+//! The command line: argument definitions (clap) and one small function per command. Each
+//! command turns its arguments into library calls and prints where it wrote its results.
+
+mod inspect;
+
+use crate::model::{InputLayout, LoadOptions};
+use crate::{Error, Result};
+use clap::{Args, Parser, Subcommand};
+
+/// sufficit: physiology protocols, attribution and circuit reduction for ONNX encoding models.
+#[derive(Debug, Parser)]
+#[command(name = "sufficit", version, about, long_about = None)]
+pub struct Cli {
+    /// What to do.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+/// The commands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Show a model's input layout, layers, shapes, parameters and attributable hidden layers.
+    Inspect(inspect::InspectArgs),
+}
+
+/// Options shared by every command that reads a model.
+#[derive(Debug, Args)]
+pub struct ModelArgs {
+    /// Input layout: lags-first [N,L,H,W], lags-last [N,H,W,L], volume [N,1,L,H,W] or line
+    /// [N,L,P]. Detected from the input shape when not given.
+    #[arg(long, value_name = "LAYOUT")]
+    pub input_layout: Option<String>,
+    /// Size of a symbolic input dimension other than the batch, as NAME=VALUE (repeatable).
+    #[arg(long = "dim", value_name = "NAME=VALUE")]
+    pub dims: Vec<String>,
+}
+
+impl ModelArgs {
+    /// Turn the options into load options, checking their syntax.
+    pub fn load_options(&self) -> Result<LoadOptions> {
+        let layout = self.input_layout.as_deref().map(InputLayout::parse).transpose()?;
+        let dims = self
+            .dims
+            .iter()
+            .map(|d| {
+                let (name, value) = d.split_once('=').ok_or_else(|| {
+                    Error::Usage(format!("--dim '{d}' must look like NAME=VALUE, e.g. --dim T=40"))
+                })?;
+                let v: usize = value.trim().parse().ok().filter(|&v| v > 0).ok_or_else(|| {
+                    Error::Usage(format!("--dim '{d}': the value must be a positive integer"))
+                })?;
+                Ok((name.trim().to_string(), v))
+            })
+            .collect::<Result<_>>()?;
+        Ok(LoadOptions { layout, dims })
+    }
+}
+
+/// Run the parsed command.
+pub fn run(cli: Cli) -> Result<()> {
+    match cli.command {
+        Command::Inspect(a) => inspect::run(&a),
+    }
+}

@@ -1,0 +1,191 @@
+//! Forward passes that record a tape, and reverse-mode gradients from it.
+
+use super::graph::{Graph, Source, ValueId};
+use super::ops::BackwardArgs;
+use crate::{Error, Result, Tensor};
+use ndarray::{Axis, IxDyn, Zip};
+
+/// Replace part of a value during forward: the given channels (axis 1), or all of it, take the
+/// values of `with` (broadcast to the value's shape). Gradients do not flow through replaced
+/// entries, since they no longer depend on the input.
+#[derive(Debug, Clone)]
+pub struct Override {
+    /// The value to change.
+    pub value: ValueId,
+    /// Channels to replace; `None` replaces the whole value.
+    pub channels: Option<Vec<usize>>,
+    /// Replacement, broadcastable to the value's shape (e.g. `[1, C, H, W]` for every sample).
+    pub with: Tensor,
+}
+
+impl Override {
+    fn apply(&self, t: &mut Tensor, graph: &Graph) -> Result<()> {
+        let name = &graph.values[self.value].name;
+        let src = self.with.broadcast(IxDyn(t.shape())).ok_or_else(|| {
+            Error::Usage(format!(
+                "override of '{name}': replacement of shape {:?} does not fit the value's shape {:?}",
+                self.with.shape(),
+                t.shape()
+            ))
+        })?;
+        match &self.channels {
+            None => t.assign(&src),
+            Some(chs) => {
+                let c = t.shape().get(1).copied().unwrap_or(0);
+                for &ch in chs {
+                    if ch >= c {
+                        return Err(Error::Usage(format!(
+                            "override of '{name}': channel {ch} does not exist (it has {c})"
+                        )));
+                    }
+                    t.index_axis_mut(Axis(1), ch).assign(&src.index_axis(Axis(1), ch));
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// Zero the gradient entries this override cut off from upstream.
+    fn block(&self, g: &mut Tensor) {
+        match &self.channels {
+            None => g.fill(0.0),
+            Some(chs) => {
+                for &ch in chs {
+                    if ch < g.shape().get(1).copied().unwrap_or(0) {
+                        g.index_axis_mut(Axis(1), ch).fill(0.0);
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// Every activation of one forward pass, kept for reading and for backward.
+pub struct Tape<'g> {
+    graph: &'g Graph,
+    values: Vec<Option<Tensor>>,
+    overrides: Vec<Override>,
+}
+
+impl<'g> Tape<'g> {
+    /// The value `id` as computed in this pass (parameters come from the graph).
+    pub fn value(&self, id: ValueId) -> &Tensor {
+        match &self.graph.values[id].source {
+            Source::Param(t) => t,
+            _ => self.values[id].as_ref().expect("every non-parameter value is on the tape"),
+        }
+    }
+
+    /// The model outputs, in order.
+    pub fn outputs(&self) -> Vec<&Tensor> {
+        self.graph.outputs.iter().map(|&o| self.value(o)).collect()
+    }
+
+    /// Reverse mode: given seeds dF/d(value) at some values, return dF/d(value) at each of
+    /// `wanted` (zeros where F does not depend on it). One call serves any number of seeds.
+    pub fn gradients(&self, seeds: &[(ValueId, Tensor)], wanted: &[ValueId]) -> Result<Vec<Tensor>> {
+        let g = self.graph;
+        let n = g.values.len();
+        // A value needs a gradient if it is wanted or lies downstream of a wanted value.
+        let mut live = vec![false; n];
+        for &w in wanted {
+            live[w] = true;
+        }
+        for node in &g.nodes {
+            if node.inputs.iter().any(|&i| live[i]) {
+                live[node.output] = true;
+            }
+        }
+        let mut grads: Vec<Option<Tensor>> = vec![None; n];
+        for (id, seed) in seeds {
+            if seed.shape() != self.value(*id).shape() {
+                return Err(Error::Usage(format!(
+                    "gradient seed for '{}' has shape {:?}, the value has {:?}",
+                    g.values[*id].name,
+                    seed.shape(),
+                    self.value(*id).shape()
+                )));
+            }
+            accumulate(&mut grads[*id], seed.clone());
+        }
+        for node in g.nodes.iter().rev() {
+            let wants: Vec<bool> = node.inputs.iter().map(|&i| live[i]).collect();
+            let Some(grad) = grads[node.output].as_ref() else { continue };
+            if !wants.iter().any(|&w| w) {
+                continue;
+            }
+            let mut grad = grad.clone();
+            for o in self.overrides.iter().filter(|o| o.value == node.output) {
+                o.block(&mut grad);
+            }
+            let inputs: Vec<&Tensor> = node.inputs.iter().map(|&i| self.value(i)).collect();
+            let args = BackwardArgs { inputs: &inputs, output: self.value(node.output), grad: &grad, wants: &wants };
+            let input_grads = node.op.backward(&args).map_err(|e| node_error(node, e.0))?;
+            for ((&i, gi), &w) in node.inputs.iter().zip(input_grads).zip(&wants) {
+                if let (true, Some(gi)) = (w, gi) {
+                    accumulate(&mut grads[i], gi);
+                }
+            }
+        }
+        Ok(wanted
+            .iter()
+            .map(|&w| grads[w].clone().unwrap_or_else(|| Tensor::zeros(IxDyn(self.value(w).shape()))))
+            .collect())
+    }
+}
+
+fn accumulate(slot: &mut Option<Tensor>, g: Tensor) {
+    match slot {
+        Some(acc) => Zip::from(acc).and(&g).for_each(|a, &b| *a += b),
+        None => *slot = Some(g),
+    }
+}
+
+fn node_error(node: &super::Node, message: String) -> Error {
+    Error::Node { node: node.name.clone(), op: node.op.name().into(), message }
+}
+
+impl Graph {
+    /// Run the graph on a batch (`input` has the model's input shape with any batch size),
+    /// applying `overrides`, and keep every activation.
+    pub fn forward(&self, input: Tensor, overrides: &[Override]) -> Result<Tape<'_>> {
+        let expected = &self.values[self.input].shape[1..];
+        if input.ndim() == 0 || &input.shape()[1..] != expected {
+            return Err(Error::Usage(format!(
+                "the model input '{}' takes [batch, {}] but was given {:?}",
+                self.values[self.input].name,
+                expected.iter().map(|d| d.to_string()).collect::<Vec<_>>().join(", "),
+                input.shape()
+            )));
+        }
+        let mut values: Vec<Option<Tensor>> = vec![None; self.values.len()];
+        values[self.input] = Some(input);
+        for node in &self.nodes {
+            let out = {
+                let inputs: Vec<&Tensor> = node
+                    .inputs
+                    .iter()
+                    .map(|&i| match &self.values[i].source {
+                        Source::Param(t) => t,
+                        _ => values[i].as_ref().expect("topological order"),
+                    })
+                    .collect();
+                node.op.forward(&inputs).map_err(|e| node_error(node, e.0))?
+            };
+            let mut out = out;
+            for o in overrides.iter().filter(|o| o.value == node.output) {
+                o.apply(&mut out, self)?;
+            }
+            values[node.output] = Some(out);
+        }
+        for o in overrides {
+            if !matches!(self.values[o.value].source, Source::Node(_)) {
+                return Err(Error::Usage(format!(
+                    "'{}' is not computed by a node and cannot be overridden",
+                    self.values[o.value].name
+                )));
+            }
+        }
+        Ok(Tape { graph: self, values, overrides: overrides.to_vec() })
+    }
+}
