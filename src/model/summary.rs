@@ -11,8 +11,8 @@ use serde::Serialize;
 pub struct InputSummary {
     /// ONNX name.
     pub name: String,
-    /// Shape with the batch shown as "N".
-    pub shape: Vec<String>,
+    /// Shape; the batch axis is the string "N".
+    pub shape: Vec<serde_json::Value>,
     /// Detected or chosen layout.
     pub layout: InputLayout,
     /// Frames per window.
@@ -28,8 +28,8 @@ pub struct InputSummary {
 pub struct OutputSummary {
     /// ONNX name.
     pub name: String,
-    /// Shape with the batch shown as "N".
-    pub shape: Vec<String>,
+    /// Shape; the batch axis is the string "N".
+    pub shape: Vec<serde_json::Value>,
 }
 
 /// One node of the graph after folding.
@@ -42,7 +42,7 @@ pub struct NodeSummary {
     /// Output value name.
     pub output: String,
     /// Output shape with the batch shown as "N".
-    pub output_shape: Vec<String>,
+    pub output_shape: Vec<serde_json::Value>,
     /// Number of parameters (float initializer entries) the node reads.
     pub parameters: usize,
 }
@@ -67,8 +67,8 @@ pub struct HiddenLayer {
     pub op: String,
     /// Channels (units).
     pub channels: usize,
-    /// Shape with the batch shown as "N".
-    pub shape: Vec<String>,
+    /// Shape; the batch axis is the string "N".
+    pub shape: Vec<serde_json::Value>,
     /// Extent of the input one position of this layer depends on.
     pub receptive_field: ReceptiveField,
 }
@@ -94,8 +94,13 @@ pub struct Summary {
     pub parameters: usize,
 }
 
-fn show(shape: &[usize]) -> Vec<String> {
-    shape.iter().enumerate().map(|(i, d)| if i == 0 { "N".into() } else { d.to_string() }).collect()
+/// A shape with the batch axis shown as the string "N" and the other axes as numbers.
+fn show(shape: &[usize]) -> Vec<serde_json::Value> {
+    shape.iter().enumerate().map(|(i, &d)| if i == 0 { "N".into() } else { d.into() }).collect()
+}
+
+fn join(shape: &[serde_json::Value]) -> String {
+    shape.iter().map(|v| v.as_str().map_or_else(|| v.to_string(), String::from)).collect::<Vec<_>>().join(", ")
 }
 
 /// Receptive field bookkeeping per value: extent and jump (cumulative stride) per spatial axis
@@ -215,19 +220,19 @@ impl Summary {
         s += &format!(
             "input    {} [{}]  layout {} ({} lags, {}x{} pixels)\n",
             i.name,
-            i.shape.join(", "),
+            join(&i.shape),
             serde_json::to_value(i.layout).ok().and_then(|v| v.as_str().map(String::from)).unwrap_or_default(),
             i.lags,
             i.height,
             i.width
         );
         for o in &self.outputs {
-            s += &format!("output   {} [{}]\n", o.name, o.shape.join(", "));
+            s += &format!("output   {} [{}]\n", o.name, join(&o.shape));
         }
         s += &format!("\nnodes ({} after folding {} constant nodes)\n", self.nodes.len(), self.folded_nodes);
         s += &format!("  {:<28} {:<20} {:<24} {:>10}\n", "name", "op", "output shape", "parameters");
         for n in &self.nodes {
-            s += &format!("  {:<28} {:<20} {:<24} {:>10}\n", n.name, n.op, format!("[{}]", n.output_shape.join(", ")), n.parameters);
+            s += &format!("  {:<28} {:<20} {:<24} {:>10}\n", n.name, n.op, format!("[{}]", join(&n.output_shape)), n.parameters);
         }
         s += "\nhidden layers (units = channels)\n";
         if self.hidden_layers.is_empty() {
