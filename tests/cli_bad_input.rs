@@ -7,8 +7,16 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 
 fn inspect(args: &[&str]) -> (bool, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_sufficit")).arg("inspect").args(args).output().unwrap();
-    (out.status.success(), String::from_utf8_lossy(&out.stdout).into(), String::from_utf8_lossy(&out.stderr).into())
+    let out = Command::new(env!("CARGO_BIN_EXE_sufficit"))
+        .arg("inspect")
+        .args(args)
+        .output()
+        .unwrap();
+    (
+        out.status.success(),
+        String::from_utf8_lossy(&out.stdout).into(),
+        String::from_utf8_lossy(&out.stderr).into(),
+    )
 }
 
 /// Run inspect on a model and expect a clean failure whose message contains every `needle`.
@@ -17,9 +25,19 @@ fn refused(path: &Path, extra: &[&str], needles: &[&str]) -> String {
     args.extend(extra);
     let (ok, _, err) = inspect(&args);
     assert!(!ok, "{} should be refused", path.display());
-    assert!(!err.contains("panicked"), "panic instead of an error: {err}");
-    assert!(err.starts_with("sufficit: error: "), "error is not one paragraph: {err}");
-    assert_eq!(err.trim_end().lines().count(), 1, "error spans several lines: {err}");
+    assert!(
+        !err.contains("panicked"),
+        "panic instead of an error: {err}"
+    );
+    assert!(
+        err.starts_with("sufficit: error: "),
+        "error is not one paragraph: {err}"
+    );
+    assert_eq!(
+        err.trim_end().lines().count(),
+        1,
+        "error spans several lines: {err}"
+    );
     for n in needles {
         assert!(err.contains(n), "error lacks '{n}': {err}");
     }
@@ -48,7 +66,11 @@ fn the_tiny_model_itself_is_accepted() {
 
 #[test]
 fn a_missing_file_is_named() {
-    refused(Path::new("/nonexistent/model.onnx"), &[], &["/nonexistent/model.onnx", "cannot read"]);
+    refused(
+        Path::new("/nonexistent/model.onnx"),
+        &[],
+        &["/nonexistent/model.onnx", "cannot read"],
+    );
 }
 
 #[test]
@@ -69,15 +91,42 @@ fn an_unsupported_op_names_node_op_and_the_supported_set() {
     let (mut nodes, inits) = tiny_parts();
     nodes[1] = node("HardSwish", "fancy_activation", &["c"], "r");
     let (_d, p) = temp("unsupported.onnx");
-    save(&model(nodes, inits, vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])]), &p);
-    refused(&p, &[], &["fancy_activation", "HardSwish", "Supported operators", "Conv", "Softplus"]);
+    save(
+        &model(
+            nodes,
+            inits,
+            vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])],
+        ),
+        &p,
+    );
+    refused(
+        &p,
+        &[],
+        &[
+            "fancy_activation",
+            "HardSwish",
+            "Supported operators",
+            "Conv",
+            "Softplus",
+        ],
+    );
 }
 
 #[test]
 fn unbound_symbolic_dimensions_are_refused_and_can_be_bound() {
     let (nodes, inits) = tiny_parts();
     let (_d, p) = temp("symbolic.onnx");
-    save(&model(nodes, inits, vec![value_info("x", &[D::S("N"), D::S("lags"), D::N(5), D::N(5)])]), &p);
+    save(
+        &model(
+            nodes,
+            inits,
+            vec![value_info(
+                "x",
+                &[D::S("N"), D::S("lags"), D::N(5), D::N(5)],
+            )],
+        ),
+        &p,
+    );
     refused(&p, &[], &["'lags'", "--dim lags="]);
     let (ok, out, err) = inspect(&[p.to_str().unwrap(), "--dim", "lags=3", "--json"]);
     assert!(ok, "{err}");
@@ -91,7 +140,10 @@ fn an_input_rank_no_layout_fits_is_refused() {
     let m = model(
         vec![node("Relu", "relu", &["x"], "y")],
         vec![],
-        vec![value_info("x", &[D::S("N"), D::N(1), D::N(2), D::N(3), D::N(4), D::N(5)])],
+        vec![value_info(
+            "x",
+            &[D::S("N"), D::N(1), D::N(2), D::N(3), D::N(4), D::N(5)],
+        )],
     );
     save(&m, &p);
     refused(&p, &[], &["rank 6", "[N, L, H, W]"]);
@@ -101,8 +153,16 @@ fn an_input_rank_no_layout_fits_is_refused() {
 fn a_forced_layout_that_does_not_fit_is_refused() {
     let (_d, p) = temp("ok.onnx");
     save(&tiny(), &p);
-    refused(&p, &["--input-layout", "volume"], &["volume", "[N, 1, L, H, W]"]);
-    refused(&p, &["--input-layout", "sideways"], &["unknown input layout", "lags-first"]);
+    refused(
+        &p,
+        &["--input-layout", "volume"],
+        &["volume", "[N, 1, L, H, W]"],
+    );
+    refused(
+        &p,
+        &["--input-layout", "sideways"],
+        &["unknown input layout", "lags-first"],
+    );
 }
 
 #[test]
@@ -111,7 +171,14 @@ fn nan_or_inf_weights_are_refused_with_the_tensor_name() {
     inits[0].float_data[7] = f32::NAN;
     inits[0].float_data[8] = f32::INFINITY;
     let (_d, p) = temp("nan.onnx");
-    save(&model(nodes, inits, vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])]), &p);
+    save(
+        &model(
+            nodes,
+            inits,
+            vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])],
+        ),
+        &p,
+    );
     refused(&p, &[], &["initializer 'w'", "2 NaN or infinite"]);
 }
 
@@ -123,7 +190,10 @@ fn several_inputs_are_refused_with_their_names() {
     let m = model(
         nodes,
         inits,
-        vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)]), value_info("extra", &[D::S("N"), D::N(2)])],
+        vec![
+            value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)]),
+            value_info("extra", &[D::S("N"), D::N(2)]),
+        ],
     );
     save(&m, &p);
     refused(&p, &[], &["2 inputs", "'x'", "'extra'"]);
@@ -134,6 +204,13 @@ fn shape_errors_name_the_node() {
     let (nodes, mut inits) = tiny_parts();
     inits[2] = floats("k", &[17, 2], vec![0.0; 34]);
     let (_d, p) = temp("mismatch.onnx");
-    save(&model(nodes, inits, vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])]), &p);
+    save(
+        &model(
+            nodes,
+            inits,
+            vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])],
+        ),
+        &p,
+    );
     refused(&p, &[], &["'readout'", "Gemm"]);
 }

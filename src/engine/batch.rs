@@ -25,7 +25,9 @@ pub fn map_chunks<T: Send>(
     starts
         .par_iter()
         .map(|&s| {
-            let part = input.slice_axis(Axis(0), Slice::from(s..(s + chunk).min(n))).to_owned();
+            let part = input
+                .slice_axis(Axis(0), Slice::from(s..(s + chunk).min(n)))
+                .to_owned();
             f(part)
         })
         .collect()

@@ -12,6 +12,24 @@ pub struct FastPath {
 }
 
 impl FastPath {
+    /// Build and optimise the plan for batches of exactly `batch` samples; a fixed batch lets
+    /// tract choose its fastest kernels.
+    pub fn with_batch(model: &Model, batch: usize) -> Result<Self> {
+        let fail = |e: TractError| Error::Model {
+            path: model.path.clone(),
+            message: format!("tract could not prepare the forward plan: {e:#}"),
+        };
+        let mut shape = model.graph.values[model.graph.input].shape.clone();
+        shape[0] = batch;
+        let plan = tract_onnx::onnx()
+            .model_for_proto_model(&model.proto)
+            .and_then(|m| m.with_input_fact(0, f32::fact(&shape).into()))
+            .and_then(|m| m.into_optimized())
+            .and_then(|m| m.into_runnable())
+            .map_err(fail)?;
+        Ok(FastPath { plan })
+    }
+
     /// Build and optimise the plan (takes a moment; build once, run many batches).
     pub fn new(model: &Model) -> Result<Self> {
         let fail = |e: TractError| Error::Model {

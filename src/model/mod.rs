@@ -3,9 +3,9 @@
 //! differentiable [`Graph`](crate::engine::Graph) and tract's optimised forward plan.
 
 mod fast;
+pub mod layout;
 mod load;
 mod read;
-pub mod layout;
 pub mod summary;
 pub mod tensor_proto;
 

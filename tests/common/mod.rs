@@ -40,7 +40,13 @@ pub fn value_info(name: &str, dims: &[D]) -> pb::ValueInfoProto {
 }
 
 pub fn floats(name: &str, dims: &[i64], values: Vec<f32>) -> pb::TensorProto {
-    pb::TensorProto { name: name.into(), dims: dims.to_vec(), data_type: DataType::Float as i32, float_data: values, ..Default::default() }
+    pb::TensorProto {
+        name: name.into(),
+        dims: dims.to_vec(),
+        data_type: DataType::Float as i32,
+        float_data: values,
+        ..Default::default()
+    }
 }
 
 pub fn node(op: &str, name: &str, inputs: &[&str], output: &str) -> pb::NodeProto {
@@ -62,18 +68,33 @@ pub fn tiny_parts() -> (Vec<pb::NodeProto>, Vec<pb::TensorProto>) {
         node("Gemm", "readout", &["f", "k", "kb"], "y"),
     ];
     let inits = vec![
-        floats("w", &[2, 3, 3, 3], (0..54).map(|i| ((i * 7) % 11) as f32 * 0.1 - 0.5).collect()),
+        floats(
+            "w",
+            &[2, 3, 3, 3],
+            (0..54).map(|i| ((i * 7) % 11) as f32 * 0.1 - 0.5).collect(),
+        ),
         floats("b", &[2], vec![0.1, -0.1]),
-        floats("k", &[18, 2], (0..36).map(|i| ((i * 5) % 9) as f32 * 0.1 - 0.4).collect()),
+        floats(
+            "k",
+            &[18, 2],
+            (0..36).map(|i| ((i * 5) % 9) as f32 * 0.1 - 0.4).collect(),
+        ),
         floats("kb", &[2], vec![0.0, 0.2]),
     ];
     (nodes, inits)
 }
 
-pub fn model(nodes: Vec<pb::NodeProto>, inits: Vec<pb::TensorProto>, inputs: Vec<pb::ValueInfoProto>) -> pb::ModelProto {
+pub fn model(
+    nodes: Vec<pb::NodeProto>,
+    inits: Vec<pb::TensorProto>,
+    inputs: Vec<pb::ValueInfoProto>,
+) -> pb::ModelProto {
     pb::ModelProto {
         ir_version: 8,
-        opset_import: vec![pb::OperatorSetIdProto { domain: String::new(), version: 13 }],
+        opset_import: vec![pb::OperatorSetIdProto {
+            domain: String::new(),
+            version: 13,
+        }],
         graph: Some(pb::GraphProto {
             node: nodes,
             name: "test".into(),
@@ -89,7 +110,11 @@ pub fn model(nodes: Vec<pb::NodeProto>, inits: Vec<pb::TensorProto>, inputs: Vec
 /// The valid tiny model with input `[N, 3, 5, 5]`.
 pub fn tiny() -> pb::ModelProto {
     let (nodes, inits) = tiny_parts();
-    model(nodes, inits, vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])])
+    model(
+        nodes,
+        inits,
+        vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])],
+    )
 }
 
 pub fn save(m: &pb::ModelProto, path: &Path) {

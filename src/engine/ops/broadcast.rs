@@ -17,7 +17,9 @@ pub fn broadcast_shape(a: &[usize], b: &[usize]) -> OpResult<Vec<usize>> {
             (1, y) => y,
             (x, 1) => x,
             _ => {
-                return Err(OpError(format!("shapes {a:?} and {b:?} cannot be broadcast together")))
+                return Err(OpError(format!(
+                    "shapes {a:?} and {b:?} cannot be broadcast together"
+                )))
             }
         };
     }
@@ -64,11 +66,26 @@ mod tests {
     #[test]
     fn shapes_follow_the_onnx_broadcasting_rules() {
         // Examples from the ONNX specification, Broadcasting.md.
-        assert_eq!(broadcast_shape(&[2, 3, 4, 5], &[]).unwrap(), vec![2, 3, 4, 5]);
-        assert_eq!(broadcast_shape(&[2, 3, 4, 5], &[5]).unwrap(), vec![2, 3, 4, 5]);
-        assert_eq!(broadcast_shape(&[4, 5], &[2, 3, 4, 5]).unwrap(), vec![2, 3, 4, 5]);
-        assert_eq!(broadcast_shape(&[1, 4, 5], &[2, 3, 1, 1]).unwrap(), vec![2, 3, 4, 5]);
-        assert_eq!(broadcast_shape(&[3, 4, 5], &[2, 1, 1, 1]).unwrap(), vec![2, 3, 4, 5]);
+        assert_eq!(
+            broadcast_shape(&[2, 3, 4, 5], &[]).unwrap(),
+            vec![2, 3, 4, 5]
+        );
+        assert_eq!(
+            broadcast_shape(&[2, 3, 4, 5], &[5]).unwrap(),
+            vec![2, 3, 4, 5]
+        );
+        assert_eq!(
+            broadcast_shape(&[4, 5], &[2, 3, 4, 5]).unwrap(),
+            vec![2, 3, 4, 5]
+        );
+        assert_eq!(
+            broadcast_shape(&[1, 4, 5], &[2, 3, 1, 1]).unwrap(),
+            vec![2, 3, 4, 5]
+        );
+        assert_eq!(
+            broadcast_shape(&[3, 4, 5], &[2, 1, 1, 1]).unwrap(),
+            vec![2, 3, 4, 5]
+        );
         assert!(broadcast_shape(&[2, 3], &[4]).is_err());
     }
 
@@ -77,7 +94,9 @@ mod tests {
         let g = ArrayD::from_shape_fn(IxDyn(&[2, 3, 4]), |i| (i[0] * 12 + i[1] * 4 + i[2]) as f32);
         let s = sum_to_shape(&g, &[3, 1]);
         assert_eq!(s.shape(), &[3, 1]);
-        let expected: f32 = (0..2).flat_map(|a| (0..4).map(move |c| (a * 12 + 4 + c) as f32)).sum();
+        let expected: f32 = (0..2)
+            .flat_map(|a| (0..4).map(move |c| (a * 12 + 4 + c) as f32))
+            .sum();
         assert_eq!(s[[1, 0]], expected);
     }
 }

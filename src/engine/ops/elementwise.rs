@@ -60,7 +60,10 @@ impl Op for Binary {
                 let bv = view_as(b, &shape)?;
                 (
                     Zip::from(g).and(&bv).map_collect(|&g, &b| g / b),
-                    Zip::from(g).and(&bv).and(args.output).map_collect(|&g, &b, &y| -g * y / b),
+                    Zip::from(g)
+                        .and(&bv)
+                        .and(args.output)
+                        .map_collect(|&g, &b, &y| -g * y / b),
                 )
             }
         };

@@ -66,14 +66,27 @@ impl Op for Gemm {
         if args.wants[0] {
             // dA' = alpha * G * B'^T; dA = dA'^T when A was transposed.
             let da = g.dot(&b.t()) * self.alpha;
-            out[0] = Some(if self.trans_a { da.reversed_axes() } else { da }.as_standard_layout().into_owned().into_dyn());
+            out[0] = Some(
+                if self.trans_a { da.reversed_axes() } else { da }
+                    .as_standard_layout()
+                    .into_owned()
+                    .into_dyn(),
+            );
         }
         if args.wants[1] {
             let db = a.t().dot(&g) * self.alpha;
-            out[1] = Some(if self.trans_b { db.reversed_axes() } else { db }.as_standard_layout().into_owned().into_dyn());
+            out[1] = Some(
+                if self.trans_b { db.reversed_axes() } else { db }
+                    .as_standard_layout()
+                    .into_owned()
+                    .into_dyn(),
+            );
         }
         if args.inputs.len() > 2 && args.wants[2] {
-            out[2] = Some(sum_to_shape(&(args.grad * self.beta), args.inputs[2].shape()));
+            out[2] = Some(sum_to_shape(
+                &(args.grad * self.beta),
+                args.inputs[2].shape(),
+            ));
         }
         Ok(out)
     }
@@ -99,7 +112,14 @@ mod tests {
     fn matches_tract_and_finite_differences() {
         check_node(node("Gemm", &[]), &[&[3, 5], &[5, 4], &[4]]);
         check_node(
-            node("Gemm", &[("transB", Attr::I(1)), ("alpha", Attr::F(0.5)), ("beta", Attr::F(2.0))]),
+            node(
+                "Gemm",
+                &[
+                    ("transB", Attr::I(1)),
+                    ("alpha", Attr::F(0.5)),
+                    ("beta", Attr::F(2.0)),
+                ],
+            ),
             &[&[3, 5], &[4, 5], &[1, 4]],
         );
         check_node(node("Gemm", &[("transA", Attr::I(1))]), &[&[5, 3], &[5, 2]]);

@@ -24,8 +24,16 @@ fn plan(a: &[usize], b: &[usize]) -> OpResult<Plan> {
     if a.is_empty() || b.is_empty() {
         return Err("MatMul inputs must have rank >= 1".into());
     }
-    let pa = if a.len() == 1 { vec![1, a[0]] } else { a.to_vec() };
-    let pb = if b.len() == 1 { vec![b[0], 1] } else { b.to_vec() };
+    let pa = if a.len() == 1 {
+        vec![1, a[0]]
+    } else {
+        a.to_vec()
+    };
+    let pb = if b.len() == 1 {
+        vec![b[0], 1]
+    } else {
+        b.to_vec()
+    };
     let (m, k) = (pa[pa.len() - 2], pa[pa.len() - 1]);
     let (k2, n) = (pb[pb.len() - 2], pb[pb.len() - 1]);
     if k != k2 {
@@ -39,12 +47,30 @@ fn plan(a: &[usize], b: &[usize]) -> OpResult<Plan> {
     if b.len() > 1 {
         out.push(n);
     }
-    Ok(Plan { a: pa, b: pb, batch, m, k, n, out })
+    Ok(Plan {
+        a: pa,
+        b: pb,
+        batch,
+        m,
+        k,
+        n,
+        out,
+    })
 }
 
 /// `t` broadcast to `batch ++ [r, c]` and copied as a stack of matrices.
-fn stacked(t: &Tensor, promoted: &[usize], batch: &[usize], r: usize, c: usize) -> OpResult<Array3<f32>> {
-    let t = t.view().into_shape_with_order(IxDyn(promoted)).map_err(|e| e.to_string())?.to_owned();
+fn stacked(
+    t: &Tensor,
+    promoted: &[usize],
+    batch: &[usize],
+    r: usize,
+    c: usize,
+) -> OpResult<Array3<f32>> {
+    let t = t
+        .view()
+        .into_shape_with_order(IxDyn(promoted))
+        .map_err(|e| e.to_string())?
+        .to_owned();
     let mut full = batch.to_vec();
     full.extend([r, c]);
     let v = view_as(&t, &full)?;
@@ -79,7 +105,8 @@ impl Op for MatMul {
         let a = stacked(inputs[0], &p.a, &p.batch, p.m, p.k)?;
         let b = stacked(inputs[1], &p.b, &p.batch, p.k, p.n)?;
         let y = batched_product(&a, &b, false, false);
-        Ok(y.into_shape_with_order(IxDyn(&p.out)).map_err(|e| e.to_string())?)
+        Ok(y.into_shape_with_order(IxDyn(&p.out))
+            .map_err(|e| e.to_string())?)
     }
 
     fn backward(&self, args: &BackwardArgs) -> OpResult<Vec<Option<Tensor>>> {
@@ -93,21 +120,34 @@ impl Op for MatMul {
             .map_err(|e| e.to_string())?
             .to_owned();
         let mut out = vec![None, None];
-        let fold = |full: Array3<f32>, promoted: &[usize], original: &[usize]| -> OpResult<Tensor> {
-            let (r, c) = (full.shape()[1], full.shape()[2]);
-            let mut shape = p.batch.clone();
-            shape.extend([r, c]);
-            let full = full.into_shape_with_order(IxDyn(&shape)).map_err(|e| e.to_string())?;
-            let summed = sum_to_shape(&full, promoted);
-            Ok(summed.into_shape_with_order(IxDyn(original)).map_err(|e| e.to_string())?)
-        };
+        let fold =
+            |full: Array3<f32>, promoted: &[usize], original: &[usize]| -> OpResult<Tensor> {
+                let (r, c) = (full.shape()[1], full.shape()[2]);
+                let mut shape = p.batch.clone();
+                shape.extend([r, c]);
+                let full = full
+                    .into_shape_with_order(IxDyn(&shape))
+                    .map_err(|e| e.to_string())?;
+                let summed = sum_to_shape(&full, promoted);
+                Ok(summed
+                    .into_shape_with_order(IxDyn(original))
+                    .map_err(|e| e.to_string())?)
+            };
         if args.wants[0] {
             let b = stacked(ib, &p.b, &p.batch, p.k, p.n)?;
-            out[0] = Some(fold(batched_product(&g, &b, false, true), &p.a, ia.shape())?);
+            out[0] = Some(fold(
+                batched_product(&g, &b, false, true),
+                &p.a,
+                ia.shape(),
+            )?);
         }
         if args.wants[1] {
             let a = stacked(ia, &p.a, &p.batch, p.m, p.k)?;
-            out[1] = Some(fold(batched_product(&a, &g, true, false), &p.b, ib.shape())?);
+            out[1] = Some(fold(
+                batched_product(&a, &g, true, false),
+                &p.b,
+                ib.shape(),
+            )?);
         }
         Ok(out)
     }

@@ -11,6 +11,7 @@ pub mod broadcast;
 mod concat;
 mod constant;
 mod conv;
+mod conv_packed;
 mod conv_plan;
 mod elementwise;
 mod flatten;
@@ -93,7 +94,10 @@ pub struct Built {
 impl Built {
     /// An op whose data inputs are the first `n` node inputs.
     pub fn first(op: impl Op + 'static, n: usize) -> Self {
-        Built { op: Box::new(op), data_inputs: (0..n).collect() }
+        Built {
+            op: Box::new(op),
+            data_inputs: (0..n).collect(),
+        }
     }
 }
 
@@ -153,7 +157,11 @@ pub fn build(ctx: &BuildCtx) -> Option<OpResult<Built>> {
 
 /// The supported op_types, comma separated, for error messages.
 pub fn supported_list() -> String {
-    REGISTRY.iter().map(|(n, _)| *n).collect::<Vec<_>>().join(", ")
+    REGISTRY
+        .iter()
+        .map(|(n, _)| *n)
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 /// Resolve a possibly negative axis against `rank`.
@@ -161,7 +169,9 @@ pub fn normalize_axis(axis: i64, rank: usize) -> OpResult<usize> {
     let r = rank as i64;
     let a = if axis < 0 { axis + r } else { axis };
     if a < 0 || a >= r {
-        return Err(OpError(format!("axis {axis} is out of range for a tensor of rank {rank}")));
+        return Err(OpError(format!(
+            "axis {axis} is out of range for a tensor of rank {rank}"
+        )));
     }
     Ok(a as usize)
 }

@@ -49,7 +49,9 @@ impl Op for BatchNorm {
     }
 
     fn backward(&self, args: &BackwardArgs) -> OpResult<Vec<Option<Tensor>>> {
-        Ok(vec![Some(self.per_channel(args.grad, |g, c| g * self.gain[c]))])
+        Ok(vec![Some(
+            self.per_channel(args.grad, |g, c| g * self.gain[c]),
+        )])
     }
 }
 
@@ -79,7 +81,10 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
             *g = s / (v + eps).sqrt();
             *o = b - m * *g;
         });
-    Ok(Built { op: Box::new(BatchNorm { gain, offset }), data_inputs: vec![0] })
+    Ok(Built {
+        op: Box::new(BatchNorm { gain, offset }),
+        data_inputs: vec![0],
+    })
 }
 
 #[cfg(test)]
@@ -92,11 +97,20 @@ mod tests {
         let init = |name: &str, seed: u64, positive: bool| {
             encode_f32(name, &random_tensor(&[3], seed, positive))
         };
-        let n = node_io("BatchNormalization", &["x", "s", "b", "m", "v"], &[("epsilon", Attr::F(1e-3))]);
+        let n = node_io(
+            "BatchNormalization",
+            &["x", "s", "b", "m", "v"],
+            &[("epsilon", Attr::F(1e-3))],
+        );
         check_graph(
             n,
             &[&[2, 3, 4, 5]],
-            vec![init("s", 1, false), init("b", 2, false), init("m", 3, false), init("v", 4, true)],
+            vec![
+                init("s", 1, false),
+                init("b", 2, false),
+                init("m", 3, false),
+                init("v", 4, true),
+            ],
         );
     }
 }

@@ -28,11 +28,19 @@ impl Pad {
     fn maps(&self, shape: &[usize]) -> OpResult<Vec<Vec<Option<usize>>>> {
         let r = shape.len();
         let axes: Vec<usize> = match &self.axes {
-            Some(a) => a.iter().map(|&a| normalize_axis(a, r)).collect::<OpResult<_>>()?,
+            Some(a) => a
+                .iter()
+                .map(|&a| normalize_axis(a, r))
+                .collect::<OpResult<_>>()?,
             None => (0..r).collect(),
         };
         if self.pads.len() != 2 * axes.len() {
-            return Err(format!("pads {:?} must hold two values per padded axis ({} axes)", self.pads, axes.len()).into());
+            return Err(format!(
+                "pads {:?} must hold two values per padded axis ({} axes)",
+                self.pads,
+                axes.len()
+            )
+            .into());
         }
         let mut maps: Vec<Vec<Option<usize>>> =
             shape.iter().map(|&n| (0..n).map(Some).collect()).collect();
@@ -126,7 +134,10 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
             axes: None,
         }
     };
-    Ok(Built { op: Box::new(op), data_inputs: vec![0] })
+    Ok(Built {
+        op: Box::new(op),
+        data_inputs: vec![0],
+    })
 }
 
 #[cfg(test)]
@@ -157,8 +168,14 @@ mod tests {
         use super::{Mode, Pad};
         use crate::engine::ops::testing::check_gradients;
         use crate::engine::ops::Op;
-        let x = ndarray::ArrayD::from_shape_fn(ndarray::IxDyn(&[3, 5]), |i| (i[0] * 10 + i[1]) as f32);
-        let op = Pad { mode: Mode::Constant, pads: vec![1, -1, -1, 2], axes: None, value: 9.0 };
+        let x =
+            ndarray::ArrayD::from_shape_fn(ndarray::IxDyn(&[3, 5]), |i| (i[0] * 10 + i[1]) as f32);
+        let op = Pad {
+            mode: Mode::Constant,
+            pads: vec![1, -1, -1, 2],
+            axes: None,
+            value: 9.0,
+        };
         let y = op.forward(&[&x]).unwrap();
         assert_eq!(y.shape(), &[3, 6]);
         let row0: Vec<f32> = y.index_axis(ndarray::Axis(0), 0).iter().copied().collect();

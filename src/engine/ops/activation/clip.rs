@@ -49,6 +49,10 @@ mod tests {
     #[test]
     fn matches_tract_and_finite_differences() {
         let n = node_io("Clip", &["x", "lo", "hi"], &[]);
-        check_graph(n, &[&[3, 5]], vec![scalar_init("lo", -0.5), scalar_init("hi", 0.7)]);
+        check_graph(
+            n,
+            &[&[3, 5]],
+            vec![scalar_init("lo", -0.5), scalar_init("hi", 0.7)],
+        );
     }
 }
