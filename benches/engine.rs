@@ -4,7 +4,9 @@
 //!
 //!     cargo bench --bench engine          # figures go to docs/performance.md by hand
 
-#[path = "reference_model.rs"]
+#[path = "../tests/common/mod.rs"]
+mod common;
+#[path = "support/reference_model.rs"]
 mod reference_model;
 
 use ndarray::{ArrayD, IxDyn};

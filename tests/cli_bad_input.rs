@@ -91,14 +91,7 @@ fn an_unsupported_op_names_node_op_and_the_supported_set() {
     let (mut nodes, inits) = tiny_parts();
     nodes[1] = node("HardSwish", "fancy_activation", &["c"], "r");
     let (_d, p) = temp("unsupported.onnx");
-    save(
-        &model(
-            nodes,
-            inits,
-            vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])],
-        ),
-        &p,
-    );
+    save(&model(nodes, inits, vec![tiny_input()]), &p);
     refused(
         &p,
         &[],
@@ -171,14 +164,7 @@ fn nan_or_inf_weights_are_refused_with_the_tensor_name() {
     inits[0].float_data[7] = f32::NAN;
     inits[0].float_data[8] = f32::INFINITY;
     let (_d, p) = temp("nan.onnx");
-    save(
-        &model(
-            nodes,
-            inits,
-            vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])],
-        ),
-        &p,
-    );
+    save(&model(nodes, inits, vec![tiny_input()]), &p);
     refused(&p, &[], &["initializer 'w'", "2 NaN or infinite"]);
 }
 
@@ -204,13 +190,6 @@ fn shape_errors_name_the_node() {
     let (nodes, mut inits) = tiny_parts();
     inits[2] = floats("k", &[17, 2], vec![0.0; 34]);
     let (_d, p) = temp("mismatch.onnx");
-    save(
-        &model(
-            nodes,
-            inits,
-            vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])],
-        ),
-        &p,
-    );
+    save(&model(nodes, inits, vec![tiny_input()]), &p);
     refused(&p, &[], &["'readout'", "Gemm"]);
 }

@@ -84,37 +84,44 @@ pub fn tiny_parts() -> (Vec<pb::NodeProto>, Vec<pb::TensorProto>) {
     (nodes, inits)
 }
 
+/// A graph with the tiny model's output `y: [N, 2]`, wrapped as a model.
 pub fn model(
     nodes: Vec<pb::NodeProto>,
     inits: Vec<pb::TensorProto>,
     inputs: Vec<pb::ValueInfoProto>,
 ) -> pb::ModelProto {
+    model_of(pb::GraphProto {
+        node: nodes,
+        name: "test".into(),
+        initializer: inits,
+        input: inputs,
+        output: vec![value_info("y", &[D::S("N"), D::N(2)])],
+        ..Default::default()
+    })
+}
+
+/// Wrap a graph as an opset-13 model.
+pub fn model_of(graph: pb::GraphProto) -> pb::ModelProto {
     pb::ModelProto {
         ir_version: 8,
         opset_import: vec![pb::OperatorSetIdProto {
             domain: String::new(),
             version: 13,
         }],
-        graph: Some(pb::GraphProto {
-            node: nodes,
-            name: "test".into(),
-            initializer: inits,
-            input: inputs,
-            output: vec![value_info("y", &[D::S("N"), D::N(2)])],
-            ..Default::default()
-        }),
+        graph: Some(graph),
         ..Default::default()
     }
 }
 
-/// The valid tiny model with input `[N, 3, 5, 5]`.
+/// The tiny model's input, `x: [N, 3, 5, 5]`.
+pub fn tiny_input() -> pb::ValueInfoProto {
+    value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])
+}
+
+/// The valid tiny model.
 pub fn tiny() -> pb::ModelProto {
     let (nodes, inits) = tiny_parts();
-    model(
-        nodes,
-        inits,
-        vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)])],
-    )
+    model(nodes, inits, vec![tiny_input()])
 }
 
 pub fn save(m: &pb::ModelProto, path: &Path) {
