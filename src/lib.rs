@@ -9,6 +9,9 @@ pub mod cli;
 pub mod engine;
 pub mod error;
 pub mod model;
+pub mod output;
+pub mod response;
+pub mod stimulus;
 
 pub use error::{Error, Result};
 

@@ -2,6 +2,8 @@
 //! command turns its arguments into library calls and prints where it wrote its results.
 
 mod inspect;
+mod respond;
+mod stimulus;
 
 use crate::model::{InputLayout, LoadOptions};
 use crate::{Error, Result};
@@ -21,6 +23,36 @@ pub struct Cli {
 pub enum Command {
     /// Show a model's input layout, layers, shapes, parameters and attributable hidden layers.
     Inspect(inspect::InspectArgs),
+    /// Draw a physiology protocol's stimulus (movie, events, analysis windows) for a model.
+    Stimulus(stimulus::StimulusArgs),
+    /// Run a model on a stimulus: rates per cell and the protocol's metrics.
+    Respond(respond::RespondArgs),
+}
+
+/// Options every working command takes.
+#[derive(Debug, Args)]
+pub struct Common {
+    /// No progress bars or summary lines.
+    #[arg(long)]
+    pub quiet: bool,
+    /// Worker threads (default: all cores).
+    #[arg(long)]
+    pub threads: Option<usize>,
+    /// Random seed (noise stimuli, probes); recorded in run.json.
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
+}
+
+impl Common {
+    fn apply(&self) -> Result<()> {
+        if let Some(n) = self.threads {
+            rayon::ThreadPoolBuilder::new()
+                .num_threads(n.max(1))
+                .build_global()
+                .map_err(|e| Error::Usage(format!("--threads {n}: {e}")))?;
+        }
+        Ok(())
+    }
 }
 
 /// Options shared by every command that reads a model.
@@ -71,5 +103,13 @@ impl ModelArgs {
 pub fn run(cli: Cli) -> Result<()> {
     match cli.command {
         Command::Inspect(a) => inspect::run(&a),
+        Command::Stimulus(a) => {
+            a.common.apply()?;
+            stimulus::run(&a)
+        }
+        Command::Respond(a) => {
+            a.common.apply()?;
+            respond::run(&a)
+        }
     }
 }

@@ -136,6 +136,33 @@ impl InputBinding {
     }
 }
 
+impl InputBinding {
+    /// Inverse of [`InputBinding::to_model_input`]: a model-input-shaped tensor (e.g. an input
+    /// gradient) back to windows `[N, L, H, W]`.
+    pub fn from_model_input(&self, t: &Tensor) -> Result<Array4<f32>> {
+        let fail = |e: ndarray::ShapeError| {
+            Error::Usage(format!(
+                "input-shaped tensor {:?} does not fit the layout: {e}",
+                t.shape()
+            ))
+        };
+        let n = t.shape()[0];
+        let arranged = match self.layout {
+            InputLayout::LagsFirst | InputLayout::Volume | InputLayout::Line => {
+                t.as_standard_layout().into_owned()
+            }
+            InputLayout::LagsLast => t
+                .view()
+                .permuted_axes(vec![0, 3, 1, 2])
+                .as_standard_layout()
+                .into_owned(),
+        };
+        arranged
+            .into_shape_with_order((n, self.lags, self.height, self.width))
+            .map_err(fail)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -189,8 +216,14 @@ mod tests {
             height: 1,
             width: 5,
         };
-        let t = last.to_model_input(w);
+        let t = last.to_model_input(w.clone());
         assert_eq!(t.shape(), &[2, 1, 5, 3]);
         assert_eq!(t[[1, 0, 4, 2]], 124.0);
+        assert_eq!(last.from_model_input(&t).unwrap(), w);
+        assert_eq!(
+            line.from_model_input(&line.to_model_input(w.clone()))
+                .unwrap(),
+            w
+        );
     }
 }

@@ -1,0 +1,96 @@
+//! `sufficit respond MODEL STIMULUS_DIR --out DIR`.
+
+use super::{Common, ModelArgs};
+use crate::model::Model;
+use crate::output::{OutputDir, RunRecord};
+use crate::response::{check_size, rates, rf_centres, write_responses};
+use crate::stimulus::protocols::{self, Observed};
+use crate::stimulus::read_stimulus;
+use crate::Result;
+use clap::Args;
+use indicatif::{ProgressBar, ProgressStyle};
+use serde_json::json;
+use std::path::PathBuf;
+use std::time::Instant;
+
+/// Arguments of `respond`.
+#[derive(Debug, Args)]
+pub struct RespondArgs {
+    /// The ONNX model.
+    pub model: PathBuf,
+    /// A stimulus folder made by `sufficit stimulus`.
+    pub stimulus: PathBuf,
+    /// Output folder.
+    #[arg(long)]
+    pub out: PathBuf,
+    #[command(flatten)]
+    pub model_args: ModelArgs,
+    #[command(flatten)]
+    pub common: Common,
+}
+
+/// Run the model on the stimulus, measure the protocol, write the results.
+pub fn run(a: &RespondArgs) -> Result<()> {
+    let t0 = Instant::now();
+    let model = Model::load(&a.model, &a.model_args.load_options()?)?;
+    let stim = read_stimulus(&a.stimulus)?;
+    check_size(&model, &stim.movie)?;
+    let protocol = protocols::find(&stim.meta.protocol)?;
+    let record = RunRecord::new(
+        "respond",
+        Some(&a.model),
+        json!({"stimulus": a.stimulus.display().to_string(), "protocol": stim.meta.protocol, "layout": model.binding}),
+        a.common.seed,
+    )?;
+    let load = t0.elapsed().as_secs_f64();
+
+    let bar = if a.common.quiet {
+        ProgressBar::hidden()
+    } else {
+        ProgressBar::new(stim.meta.frames as u64)
+    };
+    bar.set_style(
+        ProgressStyle::with_template("{msg} {bar:40} {pos}/{len} frames")
+            .unwrap_or_else(|_| ProgressStyle::default_bar()),
+    );
+    bar.set_message("responses");
+    let t1 = Instant::now();
+    let r = rates(&model, &stim.movie, &|n| bar.inc(n as u64))?;
+    bar.finish_and_clear();
+    let forward = t1.elapsed().as_secs_f64();
+    let centres = rf_centres(&model, a.common.seed)?;
+    let t2 = Instant::now();
+    let obs = Observed {
+        meta: &stim.meta,
+        movie: &stim.movie,
+        rates: r.view(),
+        lags: model.binding.lags,
+        rf_centres: &centres,
+    };
+    let measured = protocol.measure(&obs)?;
+    let metrics = t2.elapsed().as_secs_f64();
+
+    let out = OutputDir::create(&a.out)?;
+    let sha = record
+        .model
+        .as_ref()
+        .map(|m| m.sha256.clone())
+        .unwrap_or_default();
+    write_responses(&out, &r, &stim.meta, &centres, &measured, &sha)?;
+    let mut record = record;
+    record.timings = vec![
+        ("load".into(), load),
+        ("responses".into(), forward),
+        ("metrics".into(), metrics),
+    ];
+    out.write_json("run.json", &record)?;
+    if !a.common.quiet {
+        println!(
+            "{} frames x {} cells; results in {}",
+            r.nrows(),
+            r.ncols(),
+            a.out.display()
+        );
+    }
+    Ok(())
+}

@@ -1,0 +1,180 @@
+//! Results folders: every file is written to a temporary name and renamed into place, so a
+//! folder never holds a half-written file; `run.json` records how the results were made.
+
+use crate::{Error, Result};
+use ndarray::{ArrayBase, Data, Dimension};
+use serde::Serialize;
+use sha2::{Digest, Sha256};
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+/// A results folder.
+pub struct OutputDir {
+    dir: PathBuf,
+}
+
+impl OutputDir {
+    /// Create the folder (and parents) if needed.
+    pub fn create(dir: &Path) -> Result<Self> {
+        std::fs::create_dir_all(dir).map_err(|e| Error::io("create the folder", dir, e))?;
+        Ok(OutputDir {
+            dir: dir.to_path_buf(),
+        })
+    }
+
+    /// The folder's path.
+    pub fn path(&self) -> &Path {
+        &self.dir
+    }
+
+    /// Write `name` atomically from a closure that fills a writer.
+    pub fn write_with(
+        &self,
+        name: &str,
+        fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
+    ) -> Result<()> {
+        let target = self.dir.join(name);
+        let tmp = self.dir.join(format!(".{name}.tmp-{}", std::process::id()));
+        let result = (|| {
+            let mut f = std::io::BufWriter::new(std::fs::File::create(&tmp)?);
+            fill(&mut f)?;
+            f.into_inner().map_err(|e| e.into_error())?.sync_all()?;
+            std::fs::rename(&tmp, &target)
+        })();
+        result.map_err(|e| {
+            let _ = std::fs::remove_file(&tmp);
+            Error::io("write", &target, e)
+        })
+    }
+
+    /// Write bytes.
+    pub fn write_bytes(&self, name: &str, bytes: &[u8]) -> Result<()> {
+        self.write_with(name, |w| w.write_all(bytes))
+    }
+
+    /// Write a value as pretty JSON.
+    pub fn write_json(&self, name: &str, value: &impl Serialize) -> Result<()> {
+        let text = serde_json::to_string_pretty(value)
+            .map_err(|e| Error::Usage(format!("cannot serialise {name}: {e}")))?;
+        self.write_bytes(name, text.as_bytes())
+    }
+
+    /// Write an f32 array as `.npy`.
+    pub fn write_npy<S: Data<Elem = f32>, D: Dimension>(
+        &self,
+        name: &str,
+        a: &ArrayBase<S, D>,
+    ) -> Result<()> {
+        use ndarray_npy::WriteNpyExt;
+        let owned = a.as_standard_layout();
+        self.write_with(name, |w| owned.write_npy(w).map_err(std::io::Error::other))
+    }
+
+    /// Write an RGB image as PNG.
+    pub fn write_png(&self, name: &str, img: &image::RgbImage) -> Result<()> {
+        let mut bytes = Vec::new();
+        img.write_to(
+            &mut std::io::Cursor::new(&mut bytes),
+            image::ImageFormat::Png,
+        )
+        .map_err(|e| Error::Usage(format!("cannot encode {name}: {e}")))?;
+        self.write_bytes(name, &bytes)
+    }
+}
+
+/// SHA-256 of a file, hex encoded.
+pub fn file_sha256(path: &Path) -> Result<String> {
+    let bytes = std::fs::read(path).map_err(|e| Error::io("read", path, e))?;
+    Ok(Sha256::digest(&bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect())
+}
+
+/// What `run.json` records: enough to reproduce the results.
+#[derive(Debug, Serialize)]
+pub struct RunRecord {
+    /// Always "sufficit/1".
+    pub schema: &'static str,
+    /// Tool name and version.
+    pub tool: String,
+    /// The command that ran.
+    pub command: String,
+    /// Model file and its SHA-256, when a model was used.
+    pub model: Option<ModelRecord>,
+    /// Every setting of the run.
+    pub settings: serde_json::Value,
+    /// Random seed.
+    pub seed: u64,
+    /// Wall-clock seconds per step.
+    pub timings: Vec<(String, f64)>,
+}
+
+/// A model as identified in run.json.
+#[derive(Debug, Serialize)]
+pub struct ModelRecord {
+    /// Path as given.
+    pub path: String,
+    /// SHA-256 of the file.
+    pub sha256: String,
+}
+
+impl RunRecord {
+    /// A record for `command` with `settings`.
+    pub fn new(
+        command: &str,
+        model: Option<&Path>,
+        settings: serde_json::Value,
+        seed: u64,
+    ) -> Result<Self> {
+        let model = model
+            .map(|p| {
+                Ok::<_, Error>(ModelRecord {
+                    path: p.display().to_string(),
+                    sha256: file_sha256(p)?,
+                })
+            })
+            .transpose()?;
+        Ok(RunRecord {
+            schema: "sufficit/1",
+            tool: format!("sufficit {}", env!("CARGO_PKG_VERSION")),
+            command: command.into(),
+            model,
+            settings,
+            seed,
+            timings: Vec::new(),
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn writes_leave_no_temporary_files() {
+        let dir = tempfile::tempdir().unwrap();
+        let out = OutputDir::create(&dir.path().join("a/b")).unwrap();
+        out.write_json("x.json", &serde_json::json!({"k": 1}))
+            .unwrap();
+        out.write_npy("m.npy", &ndarray::Array2::<f32>::zeros((2, 3)))
+            .unwrap();
+        let names: Vec<_> = std::fs::read_dir(out.path())
+            .unwrap()
+            .map(|e| e.unwrap().file_name())
+            .collect();
+        assert_eq!(names.len(), 2, "{names:?}");
+    }
+
+    #[test]
+    fn sha256_matches_a_known_digest() {
+        // FIPS 180-2 test vector: SHA-256("abc").
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("abc");
+        std::fs::write(&p, b"abc").unwrap();
+        assert_eq!(
+            file_sha256(&p).unwrap(),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
+        );
+    }
+}
