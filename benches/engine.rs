@@ -49,16 +49,8 @@ fn fastest(mut f: impl FnMut()) -> Duration {
 fn peak_mib() -> f64 {
     std::fs::read_to_string("/proc/self/status")
         .ok()
-        .and_then(|s| {
-            s.lines()
-                .find(|l| l.starts_with("VmHWM:"))
-                .map(String::from)
-        })
-        .and_then(|l| {
-            l.split_whitespace()
-                .nth(1)
-                .and_then(|v| v.parse::<f64>().ok())
-        })
+        .and_then(|s| s.lines().find(|l| l.starts_with("VmHWM:")).map(String::from))
+        .and_then(|l| l.split_whitespace().nth(1).and_then(|v| v.parse::<f64>().ok()))
         .map_or(f64::NAN, |kb| kb / 1024.0)
 }
 
@@ -67,11 +59,7 @@ fn gemm_peak(n: usize, threads: usize) -> f64 {
     let a = vec![1.0f32; n * n];
     let b = vec![0.5f32; n * n];
     let mut c = vec![0f32; n * n];
-    let par = if threads > 1 {
-        gemm::Parallelism::Rayon(threads)
-    } else {
-        gemm::Parallelism::None
-    };
+    let par = if threads > 1 { gemm::Parallelism::Rayon(threads) } else { gemm::Parallelism::None };
     let t = fastest(|| unsafe {
         gemm::gemm(
             n,
@@ -106,9 +94,7 @@ fn main() {
     let model = Model::load(&path, &LoadOptions::default()).expect("load");
     let g = &model.graph;
     let mut rng = ChaCha8Rng::seed_from_u64(1);
-    let x = ArrayD::from_shape_fn(IxDyn(&[BATCH, 40, 50, 50]), |_| {
-        rng.random_range(-1.0f32..1.0)
-    });
+    let x = ArrayD::from_shape_fn(IxDyn(&[BATCH, 40, 50, 50]), |_| rng.random_range(-1.0f32..1.0));
     let hidden = g.find("layer1").expect("layer1");
     let out = g.outputs[0];
 
@@ -126,8 +112,7 @@ fn main() {
     let t_fb_best = fastest(|| {
         let tape = g.forward(x.clone(), &[]).expect("forward");
         let seed = ArrayD::from_elem(IxDyn(&[BATCH, 4]), 1.0f32);
-        tape.gradients(&[(out, seed)], &[g.input, hidden])
-            .expect("backward");
+        tape.gradients(&[(out, seed)], &[g.input, hidden]).expect("backward");
     });
     let t_fwd = median(|| {
         g.forward(x.clone(), &[]).expect("forward");
@@ -135,8 +120,7 @@ fn main() {
     let t_fb = median(|| {
         let tape = g.forward(x.clone(), &[]).expect("forward");
         let seed = ArrayD::from_elem(IxDyn(&[BATCH, 4]), 1.0f32);
-        tape.gradients(&[(out, seed)], &[g.input, hidden])
-            .expect("backward");
+        tape.gradients(&[(out, seed)], &[g.input, hidden]).expect("backward");
     });
     let engine_peak = peak_mib();
     let fast = FastPath::new(&model).expect("tract plan");
@@ -152,11 +136,10 @@ fn main() {
     let peak2 = gemm_peak(1024, 2);
 
     let rate = |flop: f64, t: Duration| flop / t.as_secs_f64() / 1e9;
-    println!("reference model: input [{BATCH}, 40, 50, 50], Conv 8@15x15 + softplus, Conv 8@11x11 + softplus, Gemm -> 4");
     println!(
-        "threads (rayon)                     {}",
-        rayon::current_num_threads()
+        "reference model: input [{BATCH}, 40, 50, 50], Conv 8@15x15 + softplus, Conv 8@11x11 + softplus, Gemm -> 4"
     );
+    println!("threads (rayon)                     {}", rayon::current_num_threads());
     println!("f32 GEMM peak, 1024^3, 1 thread     {peak1:.1} GFLOP/s");
     println!("f32 GEMM peak, 1024^3, 2 threads    {peak2:.1} GFLOP/s");
     println!(

@@ -59,10 +59,6 @@ pub enum Error {
 impl Error {
     /// Shorthand for an I/O error on `path`.
     pub fn io(action: &'static str, path: impl Into<PathBuf>, source: std::io::Error) -> Self {
-        Error::Io {
-            action,
-            path: path.into(),
-            source,
-        }
+        Error::Io { action, path: path.into(), source }
     }
 }

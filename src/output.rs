@@ -17,9 +17,7 @@ impl OutputDir {
     /// Create the folder (and parents) if needed.
     pub fn create(dir: &Path) -> Result<Self> {
         std::fs::create_dir_all(dir).map_err(|e| Error::io("create the folder", dir, e))?;
-        Ok(OutputDir {
-            dir: dir.to_path_buf(),
-        })
+        Ok(OutputDir { dir: dir.to_path_buf() })
     }
 
     /// The folder's path.
@@ -28,11 +26,7 @@ impl OutputDir {
     }
 
     /// Write `name` atomically from a closure that fills a writer.
-    pub fn write_with(
-        &self,
-        name: &str,
-        fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>,
-    ) -> Result<()> {
+    pub fn write_with(&self, name: &str, fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>) -> Result<()> {
         let target = self.dir.join(name);
         let tmp = self.dir.join(format!(".{name}.tmp-{}", std::process::id()));
         let result = (|| {
@@ -54,17 +48,13 @@ impl OutputDir {
 
     /// Write a value as pretty JSON.
     pub fn write_json(&self, name: &str, value: &impl Serialize) -> Result<()> {
-        let text = serde_json::to_string_pretty(value)
-            .map_err(|e| Error::Usage(format!("cannot serialise {name}: {e}")))?;
+        let text =
+            serde_json::to_string_pretty(value).map_err(|e| Error::Usage(format!("cannot serialise {name}: {e}")))?;
         self.write_bytes(name, text.as_bytes())
     }
 
     /// Write an f32 array as `.npy`.
-    pub fn write_npy<S: Data<Elem = f32>, D: Dimension>(
-        &self,
-        name: &str,
-        a: &ArrayBase<S, D>,
-    ) -> Result<()> {
+    pub fn write_npy<S: Data<Elem = f32>, D: Dimension>(&self, name: &str, a: &ArrayBase<S, D>) -> Result<()> {
         use ndarray_npy::WriteNpyExt;
         let owned = a.as_standard_layout();
         self.write_with(name, |w| owned.write_npy(w).map_err(std::io::Error::other))
@@ -73,11 +63,8 @@ impl OutputDir {
     /// Write an RGB image as PNG.
     pub fn write_png(&self, name: &str, img: &image::RgbImage) -> Result<()> {
         let mut bytes = Vec::new();
-        img.write_to(
-            &mut std::io::Cursor::new(&mut bytes),
-            image::ImageFormat::Png,
-        )
-        .map_err(|e| Error::Usage(format!("cannot encode {name}: {e}")))?;
+        img.write_to(&mut std::io::Cursor::new(&mut bytes), image::ImageFormat::Png)
+            .map_err(|e| Error::Usage(format!("cannot encode {name}: {e}")))?;
         self.write_bytes(name, &bytes)
     }
 }
@@ -85,10 +72,7 @@ impl OutputDir {
 /// SHA-256 of a file, hex encoded.
 pub fn file_sha256(path: &Path) -> Result<String> {
     let bytes = std::fs::read(path).map_err(|e| Error::io("read", path, e))?;
-    Ok(Sha256::digest(&bytes)
-        .iter()
-        .map(|b| format!("{b:02x}"))
-        .collect())
+    Ok(Sha256::digest(&bytes).iter().map(|b| format!("{b:02x}")).collect())
 }
 
 /// What `run.json` records: enough to reproduce the results.
@@ -121,19 +105,9 @@ pub struct ModelRecord {
 
 impl RunRecord {
     /// A record for `command` with `settings`.
-    pub fn new(
-        command: &str,
-        model: Option<&Path>,
-        settings: serde_json::Value,
-        seed: u64,
-    ) -> Result<Self> {
+    pub fn new(command: &str, model: Option<&Path>, settings: serde_json::Value, seed: u64) -> Result<Self> {
         let model = model
-            .map(|p| {
-                Ok::<_, Error>(ModelRecord {
-                    path: p.display().to_string(),
-                    sha256: file_sha256(p)?,
-                })
-            })
+            .map(|p| Ok::<_, Error>(ModelRecord { path: p.display().to_string(), sha256: file_sha256(p)? }))
             .transpose()?;
         Ok(RunRecord {
             schema: "sufficit/1",
@@ -155,14 +129,9 @@ mod tests {
     fn writes_leave_no_temporary_files() {
         let dir = tempfile::tempdir().unwrap();
         let out = OutputDir::create(&dir.path().join("a/b")).unwrap();
-        out.write_json("x.json", &serde_json::json!({"k": 1}))
-            .unwrap();
-        out.write_npy("m.npy", &ndarray::Array2::<f32>::zeros((2, 3)))
-            .unwrap();
-        let names: Vec<_> = std::fs::read_dir(out.path())
-            .unwrap()
-            .map(|e| e.unwrap().file_name())
-            .collect();
+        out.write_json("x.json", &serde_json::json!({"k": 1})).unwrap();
+        out.write_npy("m.npy", &ndarray::Array2::<f32>::zeros((2, 3))).unwrap();
+        let names: Vec<_> = std::fs::read_dir(out.path()).unwrap().map(|e| e.unwrap().file_name()).collect();
         assert_eq!(names.len(), 2, "{names:?}");
     }
 
@@ -172,9 +141,6 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let p = dir.path().join("abc");
         std::fs::write(&p, b"abc").unwrap();
-        assert_eq!(
-            file_sha256(&p).unwrap(),
-            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"
-        );
+        assert_eq!(file_sha256(&p).unwrap(), "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad");
     }
 }

@@ -7,16 +7,8 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 
 fn inspect(args: &[&str]) -> (bool, String, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_sufficit"))
-        .arg("inspect")
-        .args(args)
-        .output()
-        .unwrap();
-    (
-        out.status.success(),
-        String::from_utf8_lossy(&out.stdout).into(),
-        String::from_utf8_lossy(&out.stderr).into(),
-    )
+    let out = Command::new(env!("CARGO_BIN_EXE_sufficit")).arg("inspect").args(args).output().unwrap();
+    (out.status.success(), String::from_utf8_lossy(&out.stdout).into(), String::from_utf8_lossy(&out.stderr).into())
 }
 
 /// Run inspect on a model and expect a clean failure whose message contains every `needle`.
@@ -25,19 +17,9 @@ fn refused(path: &Path, extra: &[&str], needles: &[&str]) -> String {
     args.extend(extra);
     let (ok, _, err) = inspect(&args);
     assert!(!ok, "{} should be refused", path.display());
-    assert!(
-        !err.contains("panicked"),
-        "panic instead of an error: {err}"
-    );
-    assert!(
-        err.starts_with("sufficit: error: "),
-        "error is not one paragraph: {err}"
-    );
-    assert_eq!(
-        err.trim_end().lines().count(),
-        1,
-        "error spans several lines: {err}"
-    );
+    assert!(!err.contains("panicked"), "panic instead of an error: {err}");
+    assert!(err.starts_with("sufficit: error: "), "error is not one paragraph: {err}");
+    assert_eq!(err.trim_end().lines().count(), 1, "error spans several lines: {err}");
     for n in needles {
         assert!(err.contains(n), "error lacks '{n}': {err}");
     }
@@ -66,11 +48,7 @@ fn the_tiny_model_itself_is_accepted() {
 
 #[test]
 fn a_missing_file_is_named() {
-    refused(
-        Path::new("/nonexistent/model.onnx"),
-        &[],
-        &["/nonexistent/model.onnx", "cannot read"],
-    );
+    refused(Path::new("/nonexistent/model.onnx"), &[], &["/nonexistent/model.onnx", "cannot read"]);
 }
 
 #[test]
@@ -92,34 +70,14 @@ fn an_unsupported_op_names_node_op_and_the_supported_set() {
     nodes[1] = node("HardSwish", "fancy_activation", &["c"], "r");
     let (_d, p) = temp("unsupported.onnx");
     save(&model(nodes, inits, vec![tiny_input()]), &p);
-    refused(
-        &p,
-        &[],
-        &[
-            "fancy_activation",
-            "HardSwish",
-            "Supported operators",
-            "Conv",
-            "Softplus",
-        ],
-    );
+    refused(&p, &[], &["fancy_activation", "HardSwish", "Supported operators", "Conv", "Softplus"]);
 }
 
 #[test]
 fn unbound_symbolic_dimensions_are_refused_and_can_be_bound() {
     let (nodes, inits) = tiny_parts();
     let (_d, p) = temp("symbolic.onnx");
-    save(
-        &model(
-            nodes,
-            inits,
-            vec![value_info(
-                "x",
-                &[D::S("N"), D::S("lags"), D::N(5), D::N(5)],
-            )],
-        ),
-        &p,
-    );
+    save(&model(nodes, inits, vec![value_info("x", &[D::S("N"), D::S("lags"), D::N(5), D::N(5)])]), &p);
     refused(&p, &[], &["'lags'", "--dim lags="]);
     let (ok, out, err) = inspect(&[p.to_str().unwrap(), "--dim", "lags=3", "--json"]);
     assert!(ok, "{err}");
@@ -133,10 +91,7 @@ fn an_input_rank_no_layout_fits_is_refused() {
     let m = model(
         vec![node("Relu", "relu", &["x"], "y")],
         vec![],
-        vec![value_info(
-            "x",
-            &[D::S("N"), D::N(1), D::N(2), D::N(3), D::N(4), D::N(5)],
-        )],
+        vec![value_info("x", &[D::S("N"), D::N(1), D::N(2), D::N(3), D::N(4), D::N(5)])],
     );
     save(&m, &p);
     refused(&p, &[], &["rank 6", "[N, L, H, W]"]);
@@ -146,16 +101,8 @@ fn an_input_rank_no_layout_fits_is_refused() {
 fn a_forced_layout_that_does_not_fit_is_refused() {
     let (_d, p) = temp("ok.onnx");
     save(&tiny(), &p);
-    refused(
-        &p,
-        &["--input-layout", "volume"],
-        &["volume", "[N, 1, L, H, W]"],
-    );
-    refused(
-        &p,
-        &["--input-layout", "sideways"],
-        &["unknown input layout", "lags-first"],
-    );
+    refused(&p, &["--input-layout", "volume"], &["volume", "[N, 1, L, H, W]"]);
+    refused(&p, &["--input-layout", "sideways"], &["unknown input layout", "lags-first"]);
 }
 
 #[test]
@@ -176,10 +123,7 @@ fn several_inputs_are_refused_with_their_names() {
     let m = model(
         nodes,
         inits,
-        vec![
-            value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)]),
-            value_info("extra", &[D::S("N"), D::N(2)]),
-        ],
+        vec![value_info("x", &[D::S("N"), D::N(3), D::N(5), D::N(5)]), value_info("extra", &[D::S("N"), D::N(2)])],
     );
     save(&m, &p);
     refused(&p, &[], &["2 inputs", "'x'", "'extra'"]);

@@ -17,33 +17,18 @@ fn model() -> Model {
 fn input(g: &Graph, n: usize) -> ArrayD<f32> {
     let mut shape = g.values[g.input].shape.clone();
     shape[0] = n;
-    ArrayD::from_shape_fn(IxDyn(&shape), |i| {
-        ((i[1] * 7 + i[2] * 3 + i[3] * 5 + i[0]) % 13) as f32 / 6.0 - 1.0
-    })
+    ArrayD::from_shape_fn(IxDyn(&shape), |i| ((i[1] * 7 + i[2] * 3 + i[3] * 5 + i[0]) % 13) as f32 / 6.0 - 1.0)
 }
 
 /// F = sum of value `at` weighted by `w`, for finite differences.
-fn objective(
-    g: &Graph,
-    x: &ArrayD<f32>,
-    at: ValueId,
-    w: &ArrayD<f32>,
-    overrides: &[Override],
-) -> f64 {
+fn objective(g: &Graph, x: &ArrayD<f32>, at: ValueId, w: &ArrayD<f32>, overrides: &[Override]) -> f64 {
     let tape = g.forward(x.clone(), overrides).unwrap();
-    tape.value(at)
-        .iter()
-        .zip(w)
-        .map(|(a, b)| *a as f64 * *b as f64)
-        .sum()
+    tape.value(at).iter().zip(w).map(|(a, b)| *a as f64 * *b as f64).sum()
 }
 
 fn assert_close(an: f32, fd: f64, what: &str) {
     let tol = 2e-3 * fd.abs().max(an.abs() as f64) + 2e-4;
-    assert!(
-        (an as f64 - fd).abs() <= tol,
-        "{what}: backward {an} vs finite difference {fd}"
-    );
+    assert!((an as f64 - fd).abs() <= tol, "{what}: backward {an} vs finite difference {fd}");
 }
 
 #[test]
@@ -62,8 +47,7 @@ fn seeds_at_a_hidden_value_give_input_gradients() {
         let eps = 1e-2;
         up.as_slice_mut().unwrap()[j] += eps;
         down.as_slice_mut().unwrap()[j] -= eps;
-        let fd = (objective(g, &up, hidden, &w, &[]) - objective(g, &down, hidden, &w, &[]))
-            / (2.0 * eps as f64);
+        let fd = (objective(g, &up, hidden, &w, &[]) - objective(g, &down, hidden, &w, &[])) / (2.0 * eps as f64);
         assert_close(grads[0].as_slice().unwrap()[j], fd, &format!("input[{j}]"));
     }
 }
@@ -77,9 +61,7 @@ fn weight_gradients_match_finite_differences() {
     let w = ArrayD::from_shape_fn(IxDyn(&[3, 5]), |i| if i[1] == 2 { 1.0 } else { 0.0 });
     let grad = {
         let tape = m.graph.forward(x.clone(), &[]).unwrap();
-        tape.gradients(&[(out, w.clone())], &[weight])
-            .unwrap()
-            .remove(0)
+        tape.gradients(&[(out, w.clone())], &[weight]).unwrap().remove(0)
     };
     let base = match &m.graph.values[weight].source {
         Source::Param(t) => t.clone(),
@@ -94,11 +76,7 @@ fn weight_gradients_match_finite_differences() {
             objective(&m.graph, &x, out, &w, &[])
         };
         let fd = (f(eps) - f(-eps)) / (2.0 * eps as f64);
-        assert_close(
-            grad.as_slice().unwrap()[j],
-            fd,
-            &format!("conv1.weight[{j}]"),
-        );
+        assert_close(grad.as_slice().unwrap()[j], fd, &format!("conv1.weight[{j}]"));
     }
 }
 
@@ -114,38 +92,19 @@ fn clamping_a_channel_changes_the_output_and_blocks_its_gradient() {
     let c = free.value(hidden).shape()[1];
     // Clamp channel 1 of relu1 to a constant map, as ablation does.
     let shape = &g.values[hidden].shape;
-    let clamp = Override {
-        value: hidden,
-        channels: Some(vec![1]),
-        with: ArrayD::from_elem(IxDyn(shape), 0.25),
-    };
+    let clamp = Override { value: hidden, channels: Some(vec![1]), with: ArrayD::from_elem(IxDyn(shape), 0.25) };
     let tape = g.forward(x.clone(), std::slice::from_ref(&clamp)).unwrap();
     let clamped = tape.value(hidden);
     assert!(clamped.index_axis(Axis(1), 1).iter().all(|&v| v == 0.25));
     for ch in (0..c).filter(|&ch| ch != 1) {
-        assert_eq!(
-            clamped.index_axis(Axis(1), ch),
-            free.value(hidden).index_axis(Axis(1), ch)
-        );
+        assert_eq!(clamped.index_axis(Axis(1), ch), free.value(hidden).index_axis(Axis(1), ch));
     }
-    assert_ne!(
-        tape.value(out),
-        free.value(out),
-        "clamping must change the output"
-    );
+    assert_ne!(tape.value(out), free.value(out), "clamping must change the output");
 
     let w = ArrayD::from_elem(IxDyn(tape.value(out).shape()), 1.0);
-    let grads = tape
-        .gradients(&[(out, w.clone())], &[pre, g.input])
-        .unwrap();
-    assert!(
-        grads[0].index_axis(Axis(1), 1).iter().all(|&v| v == 0.0),
-        "no gradient through the clamped channel"
-    );
-    assert!(
-        grads[0].index_axis(Axis(1), 0).iter().any(|&v| v != 0.0),
-        "other channels still carry gradient"
-    );
+    let grads = tape.gradients(&[(out, w.clone())], &[pre, g.input]).unwrap();
+    assert!(grads[0].index_axis(Axis(1), 1).iter().all(|&v| v == 0.0), "no gradient through the clamped channel");
+    assert!(grads[0].index_axis(Axis(1), 0).iter().any(|&v| v != 0.0), "other channels still carry gradient");
     // The input gradient is that of the clamped model.
     for &j in &[11usize, 400, 1234] {
         let eps = 1e-2;
@@ -154,13 +113,8 @@ fn clamping_a_channel_changes_the_output_and_blocks_its_gradient() {
         up.as_slice_mut().unwrap()[j] += eps;
         down.as_slice_mut().unwrap()[j] -= eps;
         let o = std::slice::from_ref(&clamp);
-        let fd =
-            (objective(g, &up, out, &w, o) - objective(g, &down, out, &w, o)) / (2.0 * eps as f64);
-        assert_close(
-            grads[1].as_slice().unwrap()[j],
-            fd,
-            &format!("clamped input[{j}]"),
-        );
+        let fd = (objective(g, &up, out, &w, o) - objective(g, &down, out, &w, o)) / (2.0 * eps as f64);
+        assert_close(grads[1].as_slice().unwrap()[j], fd, &format!("clamped input[{j}]"));
     }
 }
 
@@ -180,11 +134,6 @@ fn chunked_batches_equal_one_big_batch() {
 #[test]
 fn a_wrong_input_shape_is_an_error_not_a_panic() {
     let m = model();
-    let e = m
-        .graph
-        .forward(ArrayD::zeros(IxDyn(&[2, 8, 13, 14])), &[])
-        .err()
-        .unwrap()
-        .to_string();
+    let e = m.graph.forward(ArrayD::zeros(IxDyn(&[2, 8, 13, 14])), &[]).err().unwrap().to_string();
     assert!(e.contains("[batch, 8, 14, 14]"), "{e}");
 }

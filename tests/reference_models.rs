@@ -23,29 +23,15 @@ struct Reference {
 }
 
 fn array(v: &Value, data: &str, shape: &str) -> ArrayD<f32> {
-    let shape: Vec<usize> = v[shape]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|d| d.as_u64().unwrap() as usize)
-        .collect();
-    let data: Vec<f32> = v[data]
-        .as_array()
-        .unwrap()
-        .iter()
-        .map(|d| d.as_f64().unwrap() as f32)
-        .collect();
+    let shape: Vec<usize> = v[shape].as_array().unwrap().iter().map(|d| d.as_u64().unwrap() as usize).collect();
+    let data: Vec<f32> = v[data].as_array().unwrap().iter().map(|d| d.as_f64().unwrap() as f32).collect();
     ArrayD::from_shape_vec(IxDyn(&shape), data).unwrap()
 }
 
 fn load(name: &str) -> Reference {
     let text = std::fs::read_to_string(fixtures().join(format!("reference/{name}.json"))).unwrap();
     let v: Value = serde_json::from_str(&text).unwrap();
-    let model = Model::load(
-        &fixtures().join(format!("models/{name}.onnx")),
-        &LoadOptions::default(),
-    )
-    .unwrap();
+    let model = Model::load(&fixtures().join(format!("models/{name}.onnx")), &LoadOptions::default()).unwrap();
     Reference {
         model,
         input: array(&v, "input", "input_shape"),
@@ -60,14 +46,8 @@ fn load(name: &str) -> Reference {
 /// max |a - b| / max |b|: the error relative to the reference's scale.
 fn relative_error(a: &ArrayD<f32>, b: &ArrayD<f32>) -> f64 {
     assert_eq!(a.shape(), b.shape());
-    let scale = b
-        .iter()
-        .fold(0f64, |m, &x| m.max(x.abs() as f64))
-        .max(1e-30);
-    a.iter()
-        .zip(b)
-        .fold(0f64, |m, (&x, &y)| m.max((x as f64 - y as f64).abs()))
-        / scale
+    let scale = b.iter().fold(0f64, |m, &x| m.max(x.abs() as f64)).max(1e-30);
+    a.iter().zip(b).fold(0f64, |m, (&x, &y)| m.max((x as f64 - y as f64).abs())) / scale
 }
 
 fn check(name: &str, layout: InputLayout) {
@@ -79,19 +59,10 @@ fn check(name: &str, layout: InputLayout) {
     let tape = g.forward(r.input.clone(), &[]).unwrap();
     let ours = tape.outputs()[0].clone();
     let e = relative_error(&ours, &r.output);
-    assert!(
-        e <= 1e-5,
-        "{name}: engine forward differs from onnxruntime by {e:e}"
-    );
-    let fast = FastPath::new(&r.model)
-        .unwrap()
-        .run(r.input.clone())
-        .unwrap();
+    assert!(e <= 1e-5, "{name}: engine forward differs from onnxruntime by {e:e}");
+    let fast = FastPath::new(&r.model).unwrap().run(r.input.clone()).unwrap();
     let e = relative_error(&fast[0], &r.output);
-    assert!(
-        e <= 1e-5,
-        "{name}: tract forward differs from onnxruntime by {e:e}"
-    );
+    assert!(e <= 1e-5, "{name}: tract forward differs from onnxruntime by {e:e}");
 
     // Backward: F = sum over the batch of output[:, cell]; gradients equal JAX's within 1e-4.
     let out = g.outputs[0];
@@ -99,20 +70,12 @@ fn check(name: &str, layout: InputLayout) {
     for b in 0..ours.shape()[0] {
         seed[[b, r.cell]] = 1.0;
     }
-    let hidden = g
-        .find(&r.hidden)
-        .unwrap_or_else(|| panic!("{name}: no value '{}'", r.hidden));
+    let hidden = g.find(&r.hidden).unwrap_or_else(|| panic!("{name}: no value '{}'", r.hidden));
     let grads = tape.gradients(&[(out, seed)], &[g.input, hidden]).unwrap();
     let e = relative_error(&grads[0], &r.grad_input);
-    assert!(
-        e <= 1e-4,
-        "{name}: input gradient differs from JAX by {e:e}"
-    );
+    assert!(e <= 1e-4, "{name}: input gradient differs from JAX by {e:e}");
     let e = relative_error(&grads[1], &r.grad_hidden);
-    assert!(
-        e <= 1e-4,
-        "{name}: hidden gradient differs from JAX by {e:e}"
-    );
+    assert!(e <= 1e-4, "{name}: hidden gradient differs from JAX by {e:e}");
 }
 
 #[test]
@@ -153,17 +116,9 @@ fn fixed_batch_exports_run_batched() {
     let all = tape.outputs()[0].clone();
     assert_eq!(all.shape()[0], 5);
     for b in 0..5 {
-        let single = batch
-            .index_axis(ndarray::Axis(0), b)
-            .insert_axis(ndarray::Axis(0))
-            .to_owned();
+        let single = batch.index_axis(ndarray::Axis(0), b).insert_axis(ndarray::Axis(0)).to_owned();
         let alone = g.forward(single.clone(), &[]).unwrap().outputs()[0].clone();
-        let e = relative_error(
-            &all.index_axis(ndarray::Axis(0), b)
-                .insert_axis(ndarray::Axis(0))
-                .to_owned(),
-            &alone,
-        );
+        let e = relative_error(&all.index_axis(ndarray::Axis(0), b).insert_axis(ndarray::Axis(0)).to_owned(), &alone);
         assert!(e < 1e-6, "sample {b} differs when batched: {e:e}");
     }
     let fast = FastPath::new(&r.model).unwrap().run(batch).unwrap();

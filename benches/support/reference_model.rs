@@ -24,12 +24,7 @@ fn weights(rng: &mut ChaCha8Rng, name: &str, dims: &[i64]) -> pb::TensorProto {
 pub fn write_reference_model(path: &Path) {
     let mut rng = ChaCha8Rng::seed_from_u64(7);
     let mut gemm = node("Gemm", "readout", &["flat", "w3", "b3"], "cells_linear");
-    gemm.attribute.push(pb::AttributeProto {
-        name: "transB".into(),
-        i: 1,
-        r#type: 2,
-        ..Default::default()
-    });
+    gemm.attribute.push(pb::AttributeProto { name: "transB".into(), i: 1, r#type: 2, ..Default::default() });
     let graph = pb::GraphProto {
         name: "reference".into(),
         node: vec![
@@ -49,10 +44,7 @@ pub fn write_reference_model(path: &Path) {
             weights(&mut rng, "w3", &[4, 8 * 26 * 26]),
             weights(&mut rng, "b3", &[4]),
         ],
-        input: vec![value_info(
-            "stimulus",
-            &[D::S("N"), D::N(40), D::N(50), D::N(50)],
-        )],
+        input: vec![value_info("stimulus", &[D::S("N"), D::N(40), D::N(50), D::N(50)])],
         output: vec![value_info("rates", &[D::S("N"), D::N(4)])],
         ..Default::default()
     };

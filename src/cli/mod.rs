@@ -70,31 +70,21 @@ pub struct ModelArgs {
 impl ModelArgs {
     /// Turn the options into load options, checking their syntax.
     pub fn load_options(&self) -> Result<LoadOptions> {
-        let layout = self
-            .input_layout
-            .as_deref()
-            .map(InputLayout::parse)
-            .transpose()?;
-        let dims = self
-            .dims
-            .iter()
-            .map(|d| {
-                let (name, value) = d.split_once('=').ok_or_else(|| {
-                    Error::Usage(format!(
-                        "--dim '{d}' must look like NAME=VALUE, e.g. --dim T=40"
-                    ))
-                })?;
-                let v: usize = value
-                    .trim()
-                    .parse()
-                    .ok()
-                    .filter(|&v| v > 0)
-                    .ok_or_else(|| {
-                        Error::Usage(format!("--dim '{d}': the value must be a positive integer"))
+        let layout = self.input_layout.as_deref().map(InputLayout::parse).transpose()?;
+        let dims =
+            self.dims
+                .iter()
+                .map(|d| {
+                    let (name, value) = d.split_once('=').ok_or_else(|| {
+                        Error::Usage(format!("--dim '{d}' must look like NAME=VALUE, e.g. --dim T=40"))
                     })?;
-                Ok((name.trim().to_string(), v))
-            })
-            .collect::<Result<_>>()?;
+                    let v: usize =
+                        value.trim().parse().ok().filter(|&v| v > 0).ok_or_else(|| {
+                            Error::Usage(format!("--dim '{d}': the value must be a positive integer"))
+                        })?;
+                    Ok((name.trim().to_string(), v))
+                })
+                .collect::<Result<_>>()?;
         Ok(LoadOptions { layout, dims })
     }
 }

@@ -44,11 +44,7 @@ pub fn run(a: &RespondArgs) -> Result<()> {
     )?;
     let load = t0.elapsed().as_secs_f64();
 
-    let bar = if a.common.quiet {
-        ProgressBar::hidden()
-    } else {
-        ProgressBar::new(stim.meta.frames as u64)
-    };
+    let bar = if a.common.quiet { ProgressBar::hidden() } else { ProgressBar::new(stim.meta.frames as u64) };
     bar.set_style(
         ProgressStyle::with_template("{msg} {bar:40} {pos}/{len} frames")
             .unwrap_or_else(|_| ProgressStyle::default_bar()),
@@ -71,26 +67,13 @@ pub fn run(a: &RespondArgs) -> Result<()> {
     let metrics = t2.elapsed().as_secs_f64();
 
     let out = OutputDir::create(&a.out)?;
-    let sha = record
-        .model
-        .as_ref()
-        .map(|m| m.sha256.clone())
-        .unwrap_or_default();
+    let sha = record.model.as_ref().map(|m| m.sha256.clone()).unwrap_or_default();
     write_responses(&out, &r, &stim.meta, &centres, &measured, &sha)?;
     let mut record = record;
-    record.timings = vec![
-        ("load".into(), load),
-        ("responses".into(), forward),
-        ("metrics".into(), metrics),
-    ];
+    record.timings = vec![("load".into(), load), ("responses".into(), forward), ("metrics".into(), metrics)];
     out.write_json("run.json", &record)?;
     if !a.common.quiet {
-        println!(
-            "{} frames x {} cells; results in {}",
-            r.nrows(),
-            r.ncols(),
-            a.out.display()
-        );
+        println!("{} frames x {} cells; results in {}", r.nrows(), r.ncols(), a.out.display());
     }
     Ok(())
 }

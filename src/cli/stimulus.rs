@@ -48,44 +48,30 @@ pub struct StimulusArgs {
 }
 
 fn canvas(a: &StimulusArgs) -> Result<Canvas> {
-    let (height, width, lags) =
-        match (&a.model, &a.size) {
-            (Some(m), None) => {
-                let model = Model::load(m, &a.model_args.load_options()?)?;
-                let b = model.binding;
-                (b.height, b.width, a.lags.unwrap_or(b.lags))
-            }
-            (None, Some(s)) => {
-                let (h, w) = s
-                    .split_once(['x', 'X'])
-                    .and_then(|(h, w)| Some((h.trim().parse().ok()?, w.trim().parse().ok()?)))
-                    .ok_or_else(|| {
-                        Error::Usage(format!(
-                            "--size '{s}' must look like HEIGHTxWIDTH, e.g. 50x50"
-                        ))
-                    })?;
-                let lags = a.lags.ok_or_else(|| {
-                    Error::Usage("--size needs --lags (the model's window length in frames)".into())
-                })?;
-                (h, w, lags)
-            }
-            (Some(_), Some(_)) => {
-                return Err(Error::Usage(
-                    "give either --model or --size, not both".into(),
-                ))
-            }
-            (None, None) => return Err(Error::Usage(
-                "give --model MODEL.onnx (or --size HxW --lags L) so the stimulus fits the model"
-                    .into(),
-            )),
-        };
-    let c = Canvas {
-        height,
-        width,
-        lags,
-        frame_rate_hz: a.frame_rate,
-        pixel_um: a.pixel_um,
+    let (height, width, lags) = match (&a.model, &a.size) {
+        (Some(m), None) => {
+            let model = Model::load(m, &a.model_args.load_options()?)?;
+            let b = model.binding;
+            (b.height, b.width, a.lags.unwrap_or(b.lags))
+        }
+        (None, Some(s)) => {
+            let (h, w) = s
+                .split_once(['x', 'X'])
+                .and_then(|(h, w)| Some((h.trim().parse().ok()?, w.trim().parse().ok()?)))
+                .ok_or_else(|| Error::Usage(format!("--size '{s}' must look like HEIGHTxWIDTH, e.g. 50x50")))?;
+            let lags = a
+                .lags
+                .ok_or_else(|| Error::Usage("--size needs --lags (the model's window length in frames)".into()))?;
+            (h, w, lags)
+        }
+        (Some(_), Some(_)) => return Err(Error::Usage("give either --model or --size, not both".into())),
+        (None, None) => {
+            return Err(Error::Usage(
+                "give --model MODEL.onnx (or --size HxW --lags L) so the stimulus fits the model".into(),
+            ))
+        }
     };
+    let c = Canvas { height, width, lags, frame_rate_hz: a.frame_rate, pixel_um: a.pixel_um };
     c.validate()?;
     Ok(c)
 }
@@ -102,14 +88,12 @@ pub fn run(a: &StimulusArgs) -> Result<()> {
         print!("{}", protocols::describe(protocols::find(name)?));
         return Ok(());
     }
-    let name = a.protocol.as_deref().ok_or_else(|| {
-        Error::Usage("name a protocol (sufficit stimulus --list shows them)".into())
-    })?;
+    let name = a
+        .protocol
+        .as_deref()
+        .ok_or_else(|| Error::Usage("name a protocol (sufficit stimulus --list shows them)".into()))?;
     let protocol = protocols::find(name)?;
-    let out = a
-        .out
-        .as_ref()
-        .ok_or_else(|| Error::Usage("give --out DIR for the stimulus folder".into()))?;
+    let out = a.out.as_ref().ok_or_else(|| Error::Usage("give --out DIR for the stimulus folder".into()))?;
     let started = Instant::now();
     let params = Params::parse(name, protocol.specs(), &a.params)?;
     let c = canvas(a)?;
@@ -122,18 +106,10 @@ pub fn run(a: &StimulusArgs) -> Result<()> {
         json!({"protocol": name, "parameters": stim.meta.parameters, "canvas": c, "arguments": a.params}),
         a.common.seed,
     )?;
-    record
-        .timings
-        .push(("draw_and_write".into(), started.elapsed().as_secs_f64()));
+    record.timings.push(("draw_and_write".into(), started.elapsed().as_secs_f64()));
     OutputDir::create(out)?.write_json("run.json", &record)?;
     if !a.common.quiet {
-        println!(
-            "{} frames ({}x{} px) written to {}",
-            stim.meta.frames,
-            c.height,
-            c.width,
-            out.display()
-        );
+        println!("{} frames ({}x{} px) written to {}", stim.meta.frames, c.height, c.width, out.display());
     }
     Ok(())
 }

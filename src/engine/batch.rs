@@ -15,19 +15,13 @@ pub fn chunk_len(bytes_per_sample: usize, budget_bytes: usize) -> usize {
 
 /// Apply `f` to consecutive chunks of `input` (split on axis 0) in parallel; results keep
 /// chunk order.
-pub fn map_chunks<T: Send>(
-    input: &Tensor,
-    chunk: usize,
-    f: impl Fn(Tensor) -> Result<T> + Sync,
-) -> Result<Vec<T>> {
+pub fn map_chunks<T: Send>(input: &Tensor, chunk: usize, f: impl Fn(Tensor) -> Result<T> + Sync) -> Result<Vec<T>> {
     let n = input.shape().first().copied().unwrap_or(0);
     let starts: Vec<usize> = (0..n).step_by(chunk.max(1)).collect();
     starts
         .par_iter()
         .map(|&s| {
-            let part = input
-                .slice_axis(Axis(0), Slice::from(s..(s + chunk).min(n)))
-                .to_owned();
+            let part = input.slice_axis(Axis(0), Slice::from(s..(s + chunk).min(n))).to_owned();
             f(part)
         })
         .collect()
@@ -36,8 +30,7 @@ pub fn map_chunks<T: Send>(
 /// Join per-chunk tensors back along axis 0.
 pub fn join(parts: &[Tensor]) -> Result<Tensor> {
     let views: Vec<_> = parts.iter().map(|t| t.view()).collect();
-    ndarray::concatenate(Axis(0), &views)
-        .map_err(|e| crate::Error::Usage(format!("chunks do not join: {e}")))
+    ndarray::concatenate(Axis(0), &views).map_err(|e| crate::Error::Usage(format!("chunks do not join: {e}")))
 }
 
 #[cfg(test)]

@@ -39,18 +39,9 @@ pub fn matmul_acc(m: usize, n: usize, k: usize, dst: MatMut, lhs: Mat, rhs: Mat)
     if m == 0 || n == 0 || k == 0 {
         return;
     }
-    assert!(
-        last_index(dst.offset, m, n, dst.rs, dst.cs) < dst.data.len(),
-        "dst window"
-    );
-    assert!(
-        last_index(lhs.offset, m, k, lhs.rs, lhs.cs) < lhs.data.len(),
-        "lhs window"
-    );
-    assert!(
-        last_index(rhs.offset, k, n, rhs.rs, rhs.cs) < rhs.data.len(),
-        "rhs window"
-    );
+    assert!(last_index(dst.offset, m, n, dst.rs, dst.cs) < dst.data.len(), "dst window");
+    assert!(last_index(lhs.offset, m, k, lhs.rs, lhs.cs) < lhs.data.len(), "lhs window");
+    assert!(last_index(rhs.offset, k, n, rhs.rs, rhs.cs) < rhs.data.len(), "rhs window");
     // SAFETY: the three windows were checked to lie inside their slices; `dst` is borrowed
     // mutably, so it cannot alias `lhs` or `rhs`.
     unsafe {
@@ -92,24 +83,9 @@ mod tests {
             3,
             5,
             4,
-            MatMut {
-                data: &mut c,
-                offset: 2,
-                rs: 10,
-                cs: 2,
-            },
-            Mat {
-                data: &a,
-                offset: 1,
-                rs: 6,
-                cs: 1,
-            },
-            Mat {
-                data: &b,
-                offset: 0,
-                rs: 1,
-                cs: 6,
-            },
+            MatMut { data: &mut c, offset: 2, rs: 10, cs: 2 },
+            Mat { data: &a, offset: 1, rs: 6, cs: 1 },
+            Mat { data: &b, offset: 0, rs: 1, cs: 6 },
         );
         for i in 0..3 {
             for j in 0..5 {

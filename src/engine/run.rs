@@ -38,8 +38,7 @@ impl Override {
                             "override of '{name}': channel {ch} does not exist (it has {c})"
                         )));
                     }
-                    t.index_axis_mut(Axis(1), ch)
-                        .assign(&src.index_axis(Axis(1), ch));
+                    t.index_axis_mut(Axis(1), ch).assign(&src.index_axis(Axis(1), ch));
                 }
             }
         }
@@ -73,9 +72,7 @@ impl<'g> Tape<'g> {
     pub fn value(&self, id: ValueId) -> &Tensor {
         match &self.graph.values[id].source {
             Source::Param(t) => t,
-            _ => self.values[id]
-                .as_ref()
-                .expect("every non-parameter value is on the tape"),
+            _ => self.values[id].as_ref().expect("every non-parameter value is on the tape"),
         }
     }
 
@@ -86,11 +83,7 @@ impl<'g> Tape<'g> {
 
     /// Reverse mode: given seeds dF/d(value) at some values, return dF/d(value) at each of
     /// `wanted` (zeros where F does not depend on it). One call serves any number of seeds.
-    pub fn gradients(
-        &self,
-        seeds: &[(ValueId, Tensor)],
-        wanted: &[ValueId],
-    ) -> Result<Vec<Tensor>> {
+    pub fn gradients(&self, seeds: &[(ValueId, Tensor)], wanted: &[ValueId]) -> Result<Vec<Tensor>> {
         let g = self.graph;
         let n = g.values.len();
         // A value needs a gradient if it is wanted or lies downstream of a wanted value.
@@ -128,12 +121,7 @@ impl<'g> Tape<'g> {
                 o.block(&mut grad);
             }
             let inputs: Vec<&Tensor> = node.inputs.iter().map(|&i| self.value(i)).collect();
-            let args = BackwardArgs {
-                inputs: &inputs,
-                output: self.value(node.output),
-                grad: &grad,
-                wants: &wants,
-            };
+            let args = BackwardArgs { inputs: &inputs, output: self.value(node.output), grad: &grad, wants: &wants };
             let input_grads = node.op.backward(&args).map_err(|e| node_error(node, e.0))?;
             for ((&i, gi), &w) in node.inputs.iter().zip(input_grads).zip(&wants) {
                 if let (true, Some(gi)) = (w, gi) {
@@ -143,11 +131,7 @@ impl<'g> Tape<'g> {
         }
         Ok(wanted
             .iter()
-            .map(|&w| {
-                grads[w]
-                    .clone()
-                    .unwrap_or_else(|| Tensor::zeros(IxDyn(self.value(w).shape())))
-            })
+            .map(|&w| grads[w].clone().unwrap_or_else(|| Tensor::zeros(IxDyn(self.value(w).shape()))))
             .collect())
     }
 }
@@ -160,11 +144,7 @@ fn accumulate(slot: &mut Option<Tensor>, g: Tensor) {
 }
 
 fn node_error(node: &super::Node, message: String) -> Error {
-    Error::Node {
-        node: node.name.clone(),
-        op: node.op.name().into(),
-        message,
-    }
+    Error::Node { node: node.name.clone(), op: node.op.name().into(), message }
 }
 
 impl Graph {
@@ -176,11 +156,7 @@ impl Graph {
             return Err(Error::Usage(format!(
                 "the model input '{}' takes [batch, {}] but was given {:?}",
                 self.values[self.input].name,
-                expected
-                    .iter()
-                    .map(|d| d.to_string())
-                    .collect::<Vec<_>>()
-                    .join(", "),
+                expected.iter().map(|d| d.to_string()).collect::<Vec<_>>().join(", "),
                 input.shape()
             )));
         }
@@ -196,9 +172,7 @@ impl Graph {
                         _ => values[i].as_ref().expect("topological order"),
                     })
                     .collect();
-                node.op
-                    .forward(&inputs)
-                    .map_err(|e| node_error(node, e.0))?
+                node.op.forward(&inputs).map_err(|e| node_error(node, e.0))?
             };
             let mut out = out;
             for o in overrides.iter().filter(|o| o.value == node.output) {
@@ -214,10 +188,6 @@ impl Graph {
                 )));
             }
         }
-        Ok(Tape {
-            graph: self,
-            values,
-            overrides: overrides.to_vec(),
-        })
+        Ok(Tape { graph: self, values, overrides: overrides.to_vec() })
     }
 }

@@ -15,9 +15,7 @@ use crate::{Error, Result, Tensor};
 use ndarray::{ArrayD, IxDyn};
 use std::collections::{HashMap, HashSet};
 use std::path::{Path, PathBuf};
-use tract_onnx::pb::{
-    self, tensor_proto::DataType, tensor_shape_proto::dimension, ModelProto, NodeProto,
-};
+use tract_onnx::pb::{self, tensor_proto::DataType, tensor_shape_proto::dimension, ModelProto, NodeProto};
 
 /// How to load a model.
 #[derive(Debug, Clone, Default)]
@@ -65,19 +63,10 @@ impl Model {
     /// Read, validate and prepare `path`.
     pub fn load(path: &Path, options: &LoadOptions) -> Result<Model> {
         let proto = read_proto(path)?;
-        let err = |message: String| Error::Model {
-            path: path.into(),
-            message,
-        };
-        let opset = proto
-            .opset_import
-            .iter()
-            .find(|o| o.domain.is_empty() || o.domain == "ai.onnx")
-            .map_or(1, |o| o.version);
-        let g = proto
-            .graph
-            .as_ref()
-            .ok_or_else(|| err("holds no graph".into()))?;
+        let err = |message: String| Error::Model { path: path.into(), message };
+        let opset =
+            proto.opset_import.iter().find(|o| o.domain.is_empty() || o.domain == "ai.onnx").map_or(1, |o| o.version);
+        let g = proto.graph.as_ref().ok_or_else(|| err("holds no graph".into()))?;
 
         let mut walk = Walk::default();
         for t in &g.initializer {
@@ -97,18 +86,10 @@ impl Model {
             walk.known.insert(t.name.clone(), v);
         }
 
-        let inputs: Vec<&pb::ValueInfoProto> = g
-            .input
-            .iter()
-            .filter(|i| !walk.initializer.contains(&i.name))
-            .collect();
+        let inputs: Vec<&pb::ValueInfoProto> = g.input.iter().filter(|i| !walk.initializer.contains(&i.name)).collect();
         let input = match inputs.as_slice() {
             [one] => *one,
-            [] => {
-                return Err(err(
-                    "the graph has no input; expected one stimulus input".into()
-                ))
-            }
+            [] => return Err(err("the graph has no input; expected one stimulus input".into())),
             many => {
                 let names: Vec<_> = many.iter().map(|i| format!("'{}'", i.name)).collect();
                 return Err(err(format!(
@@ -121,29 +102,16 @@ impl Model {
         };
         let shape = input_shape(input, options).map_err(&err)?;
         let order = topological_order(g).map_err(&err)?;
-        let transposed = g
-            .node
-            .iter()
-            .find(|n| n.input.contains(&input.name))
-            .is_some_and(|n| {
-                n.op_type == "Transpose"
-                    && n.attribute
-                        .iter()
-                        .any(|a| a.name == "perm" && a.ints == [0, 3, 1, 2])
-            });
+        let transposed = g.node.iter().find(|n| n.input.contains(&input.name)).is_some_and(|n| {
+            n.op_type == "Transpose" && n.attribute.iter().any(|a| a.name == "perm" && a.ints == [0, 3, 1, 2])
+        });
         let binding = InputBinding::bind(&shape, options.layout, transposed)?;
 
-        let mut values = vec![Value {
-            name: input.name.clone(),
-            source: Source::Input,
-            shape: shape.clone(),
-        }];
+        let mut values = vec![Value { name: input.name.clone(), source: Source::Input, shape: shape.clone() }];
         let mut ids: HashMap<String, ValueId> = HashMap::from([(input.name.clone(), 0)]);
-        walk.known
-            .insert(input.name.clone(), ArrayD::zeros(IxDyn(&shape)));
+        walk.known.insert(input.name.clone(), ArrayD::zeros(IxDyn(&shape)));
         walk.dynamic.insert(input.name.clone());
-        walk.dtype
-            .insert(input.name.clone(), DataType::Float as i32);
+        walk.dtype.insert(input.name.clone(), DataType::Float as i32);
 
         let mut nodes: Vec<Node> = Vec::new();
         let mut extra_inits: Vec<pb::TensorProto> = Vec::new();
@@ -157,23 +125,14 @@ impl Model {
             };
             check_node_shape(&proto_node, &name, g)?;
             let mut built = build_op(&proto_node, &name, opset, &walk)?;
-            if let Some((node, init, rebuilt)) =
-                batch_free_reshape(&proto_node, &name, opset, &walk)?
-            {
-                walk.known.insert(
-                    init.name.clone(),
-                    tensor_proto::decode(&init).map_err(&err)?,
-                );
+            if let Some((node, init, rebuilt)) = batch_free_reshape(&proto_node, &name, opset, &walk)? {
+                walk.known.insert(init.name.clone(), tensor_proto::decode(&init).map_err(&err)?);
                 walk.dtype.insert(init.name.clone(), init.data_type);
                 extra_inits.push(init);
                 proto_node = node;
                 built = rebuilt;
             }
-            let data_names: Vec<String> = built
-                .data_inputs
-                .iter()
-                .map(|&k| proto_node.input[k].clone())
-                .collect();
+            let data_names: Vec<String> = built.data_inputs.iter().map(|&k| proto_node.input[k].clone()).collect();
             let dummy: Vec<&Tensor> = data_names
                 .iter()
                 .map(|n| {
@@ -190,10 +149,8 @@ impl Model {
                 message: format!("{} (while checking shapes with a batch of one)", e.0),
             })?;
             let out_name = proto_node.output[0].clone();
-            walk.dtype
-                .insert(out_name.clone(), output_dtype(&proto_node, &walk));
-            let depends = proto_node.op_type != "Shape"
-                && data_names.iter().any(|n| walk.dynamic.contains(n));
+            walk.dtype.insert(out_name.clone(), output_dtype(&proto_node, &walk));
+            let depends = proto_node.op_type != "Shape" && data_names.iter().any(|n| walk.dynamic.contains(n));
             if !depends {
                 folded += 1;
                 walk.known.insert(out_name, out);
@@ -205,11 +162,7 @@ impl Model {
                     Some(&id) => id,
                     None => {
                         let t = walk.known[n].clone();
-                        values.push(Value {
-                            name: n.clone(),
-                            shape: t.shape().to_vec(),
-                            source: Source::Param(t),
-                        });
+                        values.push(Value { name: n.clone(), shape: t.shape().to_vec(), source: Source::Param(t) });
                         ids.insert(n.clone(), values.len() - 1);
                         values.len() - 1
                     }
@@ -225,13 +178,7 @@ impl Model {
             ids.insert(out_name.clone(), output);
             walk.dynamic.insert(out_name.clone());
             walk.known.insert(out_name, out);
-            nodes.push(Node {
-                name,
-                op: built.op,
-                inputs,
-                output,
-                proto: proto_node,
-            });
+            nodes.push(Node { name, op: built.op, inputs, output, proto: proto_node });
         }
 
         let outputs = g
@@ -239,10 +186,7 @@ impl Model {
             .iter()
             .map(|o| match ids.get(&o.name) {
                 Some(&id) if walk.dynamic.contains(&o.name) => Ok(id),
-                _ => Err(err(format!(
-                    "graph output '{}' does not depend on the input",
-                    o.name
-                ))),
+                _ => Err(err(format!("graph output '{}' does not depend on the input", o.name))),
             })
             .collect::<Result<Vec<_>>>()?;
         let node_parameters = nodes
@@ -256,84 +200,44 @@ impl Model {
                     .sum()
             })
             .collect();
-        let proto = export_proto(
-            &proto,
-            &nodes,
-            &values,
-            &walk,
-            extra_inits,
-            input,
-            &shape,
-            &outputs,
-        );
-        let graph = Graph {
-            values,
-            nodes,
-            input: 0,
-            outputs,
-        };
+        let proto = export_proto(&proto, &nodes, &values, &walk, extra_inits, input, &shape, &outputs);
+        let graph = Graph { values, nodes, input: 0, outputs };
         check_batches(&graph, path)?;
-        Ok(Model {
-            path: path.into(),
-            graph,
-            binding,
-            opset,
-            proto,
-            folded,
-            node_parameters,
-        })
+        Ok(Model { path: path.into(), graph, binding, opset, proto, folded, node_parameters })
     }
 }
 
 fn is_float(dtype: i32) -> bool {
-    [
-        DataType::Float as i32,
-        DataType::Double as i32,
-        DataType::Float16 as i32,
-    ]
-    .contains(&dtype)
+    [DataType::Float as i32, DataType::Double as i32, DataType::Float16 as i32].contains(&dtype)
 }
 
 /// The input's shape with the batch set to 1 and symbolic dimensions bound.
-fn input_shape(
-    input: &pb::ValueInfoProto,
-    options: &LoadOptions,
-) -> std::result::Result<Vec<usize>, String> {
-    let Some(pb::type_proto::Value::TensorType(t)) =
-        input.r#type.as_ref().and_then(|t| t.value.as_ref())
-    else {
+fn input_shape(input: &pb::ValueInfoProto, options: &LoadOptions) -> std::result::Result<Vec<usize>, String> {
+    let Some(pb::type_proto::Value::TensorType(t)) = input.r#type.as_ref().and_then(|t| t.value.as_ref()) else {
         return Err(format!("input '{}' is not a tensor", input.name));
     };
     if t.elem_type != DataType::Float as i32 {
         return Err(format!(
             "input '{}' has element type {}; sufficit feeds float32 stimuli",
             input.name,
-            DataType::try_from(t.elem_type)
-                .map(|d| d.as_str_name())
-                .unwrap_or("unknown")
+            DataType::try_from(t.elem_type).map(|d| d.as_str_name()).unwrap_or("unknown")
         ));
     }
-    let dims = &t
-        .shape
-        .as_ref()
-        .ok_or_else(|| format!("input '{}' declares no shape", input.name))?
-        .dim;
+    let dims = &t.shape.as_ref().ok_or_else(|| format!("input '{}' declares no shape", input.name))?.dim;
     let mut shape = vec![1usize];
     for (k, d) in dims.iter().enumerate().skip(1) {
         let v = match &d.value {
             Some(dimension::Value::DimValue(v)) if *v > 0 => *v as usize,
-            Some(dimension::Value::DimParam(p)) => {
-                match options.dims.iter().find(|(n, _)| n == p) {
-                    Some((_, v)) => *v,
-                    None => {
-                        return Err(format!(
+            Some(dimension::Value::DimParam(p)) => match options.dims.iter().find(|(n, _)| n == p) {
+                Some((_, v)) => *v,
+                None => {
+                    return Err(format!(
                         "input '{}' dimension {k} is symbolic ('{p}'); only the batch (dimension \
                          0) may be. Give it a size with --dim {p}=VALUE",
                         input.name
                     ))
-                    }
                 }
-            }
+            },
             _ => {
                 return Err(format!(
                     "input '{}' dimension {k} has no size; give the model a fixed input shape",
@@ -344,10 +248,7 @@ fn input_shape(
         shape.push(v);
     }
     if dims.is_empty() {
-        return Err(format!(
-            "input '{}' is a scalar; expected a batch of stimulus windows",
-            input.name
-        ));
+        return Err(format!("input '{}' is a scalar; expected a batch of stimulus windows", input.name));
     }
     Ok(shape)
 }
@@ -369,18 +270,8 @@ fn topological_order(g: &pb::GraphProto) -> std::result::Result<Vec<usize>, Stri
             }
         }
         if order.len() == before {
-            let (i, n) = g
-                .node
-                .iter()
-                .enumerate()
-                .find(|(i, _)| !done[*i])
-                .expect("a node is left");
-            let missing = n
-                .input
-                .iter()
-                .find(|x| !available.contains(x.as_str()))
-                .cloned()
-                .unwrap_or_default();
+            let (i, n) = g.node.iter().enumerate().find(|(i, _)| !done[*i]).expect("a node is left");
+            let missing = n.input.iter().find(|x| !available.contains(x.as_str())).cloned().unwrap_or_default();
             return Err(format!(
                 "node '{}' (#{i}, {}) reads '{missing}', which no node, input or initializer \
                  provides (or the graph has a cycle)",
@@ -401,22 +292,15 @@ fn check_node_shape(n: &NodeProto, name: &str, g: &pb::GraphProto) -> Result<()>
         });
     }
     if n.output.is_empty() {
-        return Err(Error::Node {
-            node: name.into(),
-            op: n.op_type.clone(),
-            message: "has no output".into(),
-        });
+        return Err(Error::Node { node: name.into(), op: n.op_type.clone(), message: "has no output".into() });
     }
     for extra in n.output.iter().skip(1).filter(|o| !o.is_empty()) {
-        let used = g.node.iter().any(|m| m.input.contains(extra))
-            || g.output.iter().any(|o| &o.name == extra);
+        let used = g.node.iter().any(|m| m.input.contains(extra)) || g.output.iter().any(|o| &o.name == extra);
         if used {
             return Err(Error::Node {
                 node: name.into(),
                 op: n.op_type.clone(),
-                message: format!(
-                    "its extra output '{extra}' is used; sufficit computes only the first output"
-                ),
+                message: format!("its extra output '{extra}' is used; sufficit computes only the first output"),
             });
         }
     }
@@ -433,16 +317,10 @@ fn build_op(n: &NodeProto, name: &str, opset: i64, walk: &Walk) -> Result<Built>
     };
     let ctx = BuildCtx::new(n, opset, &lookup);
     match ops::build(&ctx) {
-        None => Err(Error::UnsupportedOp {
-            node: name.into(),
-            op: n.op_type.clone(),
-            supported: ops::supported_list(),
-        }),
-        Some(Err(e)) => Err(Error::Node {
-            node: name.into(),
-            op: n.op_type.clone(),
-            message: e.0,
-        }),
+        None => {
+            Err(Error::UnsupportedOp { node: name.into(), op: n.op_type.clone(), supported: ops::supported_list() })
+        }
+        Some(Err(e)) => Err(Error::Node { node: name.into(), op: n.op_type.clone(), message: e.0 }),
         Some(Ok(b)) => Ok(b),
     }
 }
@@ -459,24 +337,17 @@ fn batch_free_reshape(
     if n.op_type != "Reshape" || n.input.len() < 2 || !walk.dynamic.contains(&n.input[0]) {
         return Ok(None);
     }
-    let allow_zero = n
-        .attribute
-        .iter()
-        .any(|a| a.name == "allowzero" && a.i != 0);
+    let allow_zero = n.attribute.iter().any(|a| a.name == "allowzero" && a.i != 0);
     let Some(target) = walk.known.get(&n.input[1]) else {
         return Ok(None);
     };
-    let data_batch = walk
-        .known
-        .get(&n.input[0])
-        .and_then(|t| t.shape().first().copied());
+    let data_batch = walk.known.get(&n.input[0]).and_then(|t| t.shape().first().copied());
     if allow_zero || target.first() != Some(&1.0) || data_batch != Some(1) {
         return Ok(None);
     }
     let mut new_target = target.clone();
     new_target[[0]] = 0.0;
-    let init =
-        tensor_proto::encode_i64(&format!("{}__sufficit_batch_free", n.input[1]), &new_target);
+    let init = tensor_proto::encode_i64(&format!("{}__sufficit_batch_free", n.input[1]), &new_target);
     let mut node = n.clone();
     node.input[1] = init.name.clone();
     let lookup = |s: &str| {
@@ -509,25 +380,15 @@ fn output_dtype(n: &NodeProto, walk: &Walk) -> i32 {
     match n.op_type.as_str() {
         "Shape" => int64,
         "Cast" => attr("to").map_or(DataType::Float as i32, |a| a.i as i32),
-        "Constant" => attr("value")
-            .and_then(|a| a.t.as_ref())
-            .map(|t| t.data_type)
-            .unwrap_or_else(|| {
-                if attr("value_int").is_some() || attr("value_ints").is_some() {
-                    int64
-                } else {
-                    DataType::Float as i32
-                }
-            }),
-        "ConstantOfShape" => attr("value")
-            .and_then(|a| a.t.as_ref())
-            .map_or(DataType::Float as i32, |t| t.data_type),
-        _ => n
-            .input
-            .first()
-            .and_then(|i| walk.dtype.get(i))
-            .copied()
-            .unwrap_or(DataType::Float as i32),
+        "Constant" => attr("value").and_then(|a| a.t.as_ref()).map(|t| t.data_type).unwrap_or_else(|| {
+            if attr("value_int").is_some() || attr("value_ints").is_some() {
+                int64
+            } else {
+                DataType::Float as i32
+            }
+        }),
+        "ConstantOfShape" => attr("value").and_then(|a| a.t.as_ref()).map_or(DataType::Float as i32, |t| t.data_type),
+        _ => n.input.first().and_then(|i| walk.dtype.get(i)).copied().unwrap_or(DataType::Float as i32),
     }
 }
 
@@ -586,11 +447,7 @@ fn export_proto(
     };
     let graph = pb::GraphProto {
         node: nodes.iter().map(|n| n.proto.clone()).collect(),
-        name: original
-            .graph
-            .as_ref()
-            .map(|g| g.name.clone())
-            .unwrap_or_default(),
+        name: original.graph.as_ref().map(|g| g.name.clone()).unwrap_or_default(),
         initializer,
         input: vec![pb::ValueInfoProto {
             name: input.name.clone(),
@@ -629,16 +486,10 @@ fn check_batches(graph: &Graph, path: &Path) -> Result<()> {
              batch axis (dynamic_axes={{input: {{0: 'N'}}}})"
         ),
     };
-    let tape = graph
-        .forward(ArrayD::zeros(IxDyn(&shape)), &[])
-        .map_err(|e| fail(e.to_string()))?;
+    let tape = graph.forward(ArrayD::zeros(IxDyn(&shape)), &[]).map_err(|e| fail(e.to_string()))?;
     for (&o, t) in graph.outputs.iter().zip(tape.outputs()) {
         if t.shape().first() != Some(&2) {
-            return Err(fail(format!(
-                "output '{}' has shape {:?}",
-                graph.values[o].name,
-                t.shape()
-            )));
+            return Err(fail(format!("output '{}' has shape {:?}", graph.values[o].name, t.shape())));
         }
     }
     Ok(())

@@ -9,14 +9,9 @@ use tract_onnx::pb::ModelProto;
 /// Read and decode `path` as an ONNX ModelProto.
 pub fn read_proto(path: &Path) -> Result<ModelProto> {
     let bytes = std::fs::read(path).map_err(|e| Error::io("read the model", path, e))?;
-    let model_error = |message: String| Error::Model {
-        path: path.into(),
-        message,
-    };
+    let model_error = |message: String| Error::Model { path: path.into(), message };
     if bytes.is_empty() {
-        return Err(model_error(
-            "the file is empty; expected an ONNX model (.onnx)".into(),
-        ));
+        return Err(model_error("the file is empty; expected an ONNX model (.onnx)".into()));
     }
     let proto = ModelProto::decode(&bytes[..]).map_err(|e| {
         model_error(format!(

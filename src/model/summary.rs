@@ -96,19 +96,11 @@ pub struct Summary {
 
 /// A shape with the batch axis shown as the string "N" and the other axes as numbers.
 fn show(shape: &[usize]) -> Vec<serde_json::Value> {
-    shape
-        .iter()
-        .enumerate()
-        .map(|(i, &d)| if i == 0 { "N".into() } else { d.into() })
-        .collect()
+    shape.iter().enumerate().map(|(i, &d)| if i == 0 { "N".into() } else { d.into() }).collect()
 }
 
 fn join(shape: &[serde_json::Value]) -> String {
-    shape
-        .iter()
-        .map(|v| v.as_str().map_or_else(|| v.to_string(), String::from))
-        .collect::<Vec<_>>()
-        .join(", ")
+    shape.iter().map(|v| v.as_str().map_or_else(|| v.to_string(), String::from)).collect::<Vec<_>>().join(", ")
 }
 
 /// Receptive field bookkeeping per value: extent and jump (cumulative stride) per spatial axis
@@ -127,10 +119,7 @@ fn receptive_fields(model: &Model) -> Vec<Option<Field>> {
         InputLayout::LagsLast => 2,
         _ => spatial,
     };
-    fields[g.input] = Some(Field {
-        extent: vec![1; input_rank],
-        jump: vec![1; input_rank],
-    });
+    fields[g.input] = Some(Field { extent: vec![1; input_rank], jump: vec![1; input_rank] });
     for node in &g.nodes {
         let src = node.inputs.iter().find_map(|&i| match g.values[i].source {
             Source::Param(_) => None,
@@ -139,19 +128,10 @@ fn receptive_fields(model: &Model) -> Vec<Option<Field>> {
         let out_rank = g.values[node.output].shape.len().saturating_sub(2);
         let f = src.and_then(|f| match (node.op.spatial_footprint(), node.op.name()) {
             (Some(fp), _) if fp.extent.len() == f.extent.len() => Some(Field {
-                extent: f
-                    .extent
-                    .iter()
-                    .zip(&fp.extent)
-                    .zip(&f.jump)
-                    .map(|((e, k), j)| e + (k - 1) * j)
-                    .collect(),
+                extent: f.extent.iter().zip(&fp.extent).zip(&f.jump).map(|((e, k), j)| e + (k - 1) * j).collect(),
                 jump: f.jump.iter().zip(&fp.stride).map(|(j, s)| j * s).collect(),
             }),
-            (
-                _,
-                "Gemm" | "MatMul" | "Flatten" | "GlobalAveragePool" | "ReduceMean" | "ReduceSum",
-            ) => None,
+            (_, "Gemm" | "MatMul" | "Flatten" | "GlobalAveragePool" | "ReduceMean" | "ReduceSum") => None,
             (_, "Reshape") if out_rank != f.extent.len() => None,
             _ => Some(f),
         });
@@ -161,29 +141,15 @@ fn receptive_fields(model: &Model) -> Vec<Option<Field>> {
 }
 
 fn field_in_input(f: &Option<Field>, b: &InputBinding) -> ReceptiveField {
-    let full = ReceptiveField {
-        lags: b.lags,
-        height: b.height,
-        width: b.width,
-    };
+    let full = ReceptiveField { lags: b.lags, height: b.height, width: b.width };
     match f {
         None => full,
         Some(f) => match (b.layout, f.extent.as_slice()) {
-            (InputLayout::Volume, [l, h, w]) => ReceptiveField {
-                lags: (*l).min(b.lags),
-                height: (*h).min(b.height),
-                width: (*w).min(b.width),
-            },
-            (InputLayout::Line, [p]) => ReceptiveField {
-                lags: b.lags,
-                height: 1,
-                width: (*p).min(b.width),
-            },
-            (_, [h, w]) => ReceptiveField {
-                lags: b.lags,
-                height: (*h).min(b.height),
-                width: (*w).min(b.width),
-            },
+            (InputLayout::Volume, [l, h, w]) => {
+                ReceptiveField { lags: (*l).min(b.lags), height: (*h).min(b.height), width: (*w).min(b.width) }
+            }
+            (InputLayout::Line, [p]) => ReceptiveField { lags: b.lags, height: 1, width: (*p).min(b.width) },
+            (_, [h, w]) => ReceptiveField { lags: b.lags, height: (*h).min(b.height), width: (*w).min(b.width) },
             _ => full,
         },
     }
@@ -198,18 +164,13 @@ impl Summary {
         let output_ids: Vec<_> = g.outputs.clone();
         let mut has_weights_upstream = vec![false; g.values.len()];
         for node in &g.nodes {
-            has_weights_upstream[node.output] =
-                matches!(node.op.name(), "Conv" | "Gemm" | "MatMul")
-                    || node.inputs.iter().any(|&i| has_weights_upstream[i]);
+            has_weights_upstream[node.output] = matches!(node.op.name(), "Conv" | "Gemm" | "MatMul")
+                || node.inputs.iter().any(|&i| has_weights_upstream[i]);
         }
         let hidden_layers = g
             .nodes
             .iter()
-            .filter(|n| {
-                n.op.is_nonlinearity()
-                    && !output_ids.contains(&n.output)
-                    && has_weights_upstream[n.output]
-            })
+            .filter(|n| n.op.is_nonlinearity() && !output_ids.contains(&n.output) && has_weights_upstream[n.output])
             .filter(|n| g.values[n.output].shape.len() >= 2)
             .map(|n| {
                 let v = &g.values[n.output];
@@ -248,10 +209,7 @@ impl Summary {
             outputs: g
                 .outputs
                 .iter()
-                .map(|&o| OutputSummary {
-                    name: g.values[o].name.clone(),
-                    shape: show(&g.values[o].shape),
-                })
+                .map(|&o| OutputSummary { name: g.values[o].name.clone(), shape: show(&g.values[o].shape) })
                 .collect(),
             parameters: model.node_parameters.iter().sum(),
             nodes,
@@ -269,10 +227,7 @@ impl Summary {
             "input    {} [{}]  layout {} ({} lags, {}x{} pixels)\n",
             i.name,
             join(&i.shape),
-            serde_json::to_value(i.layout)
-                .ok()
-                .and_then(|v| v.as_str().map(String::from))
-                .unwrap_or_default(),
+            serde_json::to_value(i.layout).ok().and_then(|v| v.as_str().map(String::from)).unwrap_or_default(),
             i.lags,
             i.height,
             i.width
@@ -280,15 +235,8 @@ impl Summary {
         for o in &self.outputs {
             s += &format!("output   {} [{}]\n", o.name, join(&o.shape));
         }
-        s += &format!(
-            "\nnodes ({} after folding {} constant nodes)\n",
-            self.nodes.len(),
-            self.folded_nodes
-        );
-        s += &format!(
-            "  {:<28} {:<20} {:<24} {:>10}\n",
-            "name", "op", "output shape", "parameters"
-        );
+        s += &format!("\nnodes ({} after folding {} constant nodes)\n", self.nodes.len(), self.folded_nodes);
+        s += &format!("  {:<28} {:<20} {:<24} {:>10}\n", "name", "op", "output shape", "parameters");
         for n in &self.nodes {
             s += &format!(
                 "  {:<28} {:<20} {:<24} {:>10}\n",

@@ -18,34 +18,18 @@ pub fn decode(t: &TensorProto) -> Result<Tensor, String> {
     let shape: Vec<usize> = t
         .dims
         .iter()
-        .map(|&d| {
-            usize::try_from(d).map_err(|_| format!("tensor '{}' has dims {:?}", t.name, t.dims))
-        })
+        .map(|&d| usize::try_from(d).map_err(|_| format!("tensor '{}' has dims {:?}", t.name, t.dims)))
         .collect::<Result<_, _>>()?;
     let count: usize = shape.iter().product();
     let values: Vec<f32> = match DataType::try_from(t.data_type) {
         Ok(DataType::Float) if t.raw_data.is_empty() => t.float_data.clone(),
-        Ok(DataType::Float) => le_chunks::<4>(&t.raw_data)
-            .map(f32::from_le_bytes)
-            .collect(),
-        Ok(DataType::Double) if t.raw_data.is_empty() => {
-            t.double_data.iter().map(|&v| v as f32).collect()
-        }
-        Ok(DataType::Double) => le_chunks::<8>(&t.raw_data)
-            .map(|b| f64::from_le_bytes(b) as f32)
-            .collect(),
-        Ok(DataType::Int64) if t.raw_data.is_empty() => {
-            t.int64_data.iter().map(|&v| v as f32).collect()
-        }
-        Ok(DataType::Int64) => le_chunks::<8>(&t.raw_data)
-            .map(|b| i64::from_le_bytes(b) as f32)
-            .collect(),
-        Ok(DataType::Int32) if t.raw_data.is_empty() => {
-            t.int32_data.iter().map(|&v| v as f32).collect()
-        }
-        Ok(DataType::Int32) => le_chunks::<4>(&t.raw_data)
-            .map(|b| i32::from_le_bytes(b) as f32)
-            .collect(),
+        Ok(DataType::Float) => le_chunks::<4>(&t.raw_data).map(f32::from_le_bytes).collect(),
+        Ok(DataType::Double) if t.raw_data.is_empty() => t.double_data.iter().map(|&v| v as f32).collect(),
+        Ok(DataType::Double) => le_chunks::<8>(&t.raw_data).map(|b| f64::from_le_bytes(b) as f32).collect(),
+        Ok(DataType::Int64) if t.raw_data.is_empty() => t.int64_data.iter().map(|&v| v as f32).collect(),
+        Ok(DataType::Int64) => le_chunks::<8>(&t.raw_data).map(|b| i64::from_le_bytes(b) as f32).collect(),
+        Ok(DataType::Int32) if t.raw_data.is_empty() => t.int32_data.iter().map(|&v| v as f32).collect(),
+        Ok(DataType::Int32) => le_chunks::<4>(&t.raw_data).map(|b| i32::from_le_bytes(b) as f32).collect(),
         Ok(DataType::Bool | DataType::Int8 | DataType::Uint8) if t.raw_data.is_empty() => {
             t.int32_data.iter().map(|&v| v as f32).collect()
         }
@@ -110,11 +94,7 @@ mod tests {
     fn raw_and_typed_float_data_decode_alike() {
         let t = ArrayD::from_shape_vec(IxDyn(&[2, 2]), vec![1.0, -2.5, 3.0, 4.25]).unwrap();
         let raw = encode_f32("w", &t);
-        let typed = TensorProto {
-            float_data: t.iter().copied().collect(),
-            raw_data: vec![],
-            ..raw.clone()
-        };
+        let typed = TensorProto { float_data: t.iter().copied().collect(), raw_data: vec![], ..raw.clone() };
         assert_eq!(decode(&raw).unwrap(), t);
         assert_eq!(decode(&typed).unwrap(), t);
     }

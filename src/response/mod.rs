@@ -26,8 +26,7 @@ fn windows(movie: &Array3<f32>, lags: usize, first: usize, n: usize) -> Array4<f
         for l in 0..lags {
             // Lag l of the window ending at t is frame t - (lags - 1) + l; earlier is gray.
             if let Some(f) = (t + l + 1).checked_sub(lags) {
-                out.slice_mut(s![i, l, .., ..])
-                    .assign(&movie.index_axis(Axis(0), f));
+                out.slice_mut(s![i, l, .., ..]).assign(&movie.index_axis(Axis(0), f));
             }
         }
     }
@@ -51,11 +50,7 @@ pub fn check_size(model: &Model, movie: &Array3<f32>) -> Result<()> {
 
 /// Rates `[frames, cells]` (output 0, flattened per sample) for every frame of `movie`.
 /// `progress` is called with the number of frames finished in each chunk.
-pub fn rates(
-    model: &Model,
-    movie: &Array3<f32>,
-    progress: &(dyn Fn(usize) + Sync),
-) -> Result<Array2<f32>> {
+pub fn rates(model: &Model, movie: &Array3<f32>, progress: &(dyn Fn(usize) + Sync)) -> Result<Array2<f32>> {
     check_size(model, movie)?;
     let g = &model.graph;
     let frames = movie.shape()[0];
@@ -65,9 +60,7 @@ pub fn rates(
         .par_iter()
         .map(|&first| {
             let n = chunk.min(frames - first);
-            let input = model
-                .binding
-                .to_model_input(windows(movie, model.binding.lags, first, n));
+            let input = model.binding.to_model_input(windows(movie, model.binding.lags, first, n));
             let tape = g.forward(input, &[])?;
             let out = tape.outputs()[0];
             let cells = out.len() / n;
@@ -93,8 +86,7 @@ pub fn rf_centres(model: &Model, seed: u64) -> Result<Vec<(f64, f64)>> {
     let probes = 9;
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let mut win = Array4::<f32>::zeros((probes, b.lags, b.height, b.width));
-    win.slice_mut(s![1.., .., .., ..])
-        .mapv_inplace(|_| rng.random_range(-0.3..0.3));
+    win.slice_mut(s![1.., .., .., ..]).mapv_inplace(|_| rng.random_range(-0.3..0.3));
     let input = b.to_model_input(win);
     let tape = g.forward(input, &[])?;
     let out_id = g.outputs[0];
@@ -104,29 +96,16 @@ pub fn rf_centres(model: &Model, seed: u64) -> Result<Vec<(f64, f64)>> {
     for c in 0..cells {
         let mut seed_t = ndarray::ArrayD::<f32>::zeros(IxDyn(&out_shape));
         for p in 0..probes {
-            seed_t
-                .index_axis_mut(Axis(0), p)
-                .as_slice_mut()
-                .ok_or_else(|| Error::Usage("output layout".into()))?[c] = 1.0;
+            seed_t.index_axis_mut(Axis(0), p).as_slice_mut().ok_or_else(|| Error::Usage("output layout".into()))?[c] =
+                1.0;
         }
         let grad = tape.gradients(&[(out_id, seed_t)], &[g.input])?.remove(0);
         let grad = b.from_model_input(&grad)?;
-        let map = grad
-            .mapv(|v| (v as f64) * (v as f64))
-            .sum_axis(Axis(0))
-            .sum_axis(Axis(0));
+        let map = grad.mapv(|v| (v as f64) * (v as f64)).sum_axis(Axis(0)).sum_axis(Axis(0));
         let total = map.sum();
         centres.push(if total > 0.0 {
-            let r = map
-                .indexed_iter()
-                .map(|((y, _), v)| (y as f64 + 0.5) * v)
-                .sum::<f64>()
-                / total;
-            let c = map
-                .indexed_iter()
-                .map(|((_, x), v)| (x as f64 + 0.5) * v)
-                .sum::<f64>()
-                / total;
+            let r = map.indexed_iter().map(|((y, _), v)| (y as f64 + 0.5) * v).sum::<f64>() / total;
+            let c = map.indexed_iter().map(|((_, x), v)| (x as f64 + 0.5) * v).sum::<f64>() / total;
             (r, c)
         } else {
             (b.height as f64 / 2.0, b.width as f64 / 2.0)

@@ -27,10 +27,7 @@ pub fn responses_svg(rates: &Array2<f32>, meta: &Meta) -> Result<String, String>
         let top = rates.iter().cloned().fold(0f32, f32::max).max(1e-6) as f64 * 1.05;
         let low = rates.iter().cloned().fold(0f32, f32::min).min(0.0) as f64;
         let mut chart = ChartBuilder::on(&root)
-            .caption(
-                format!("{}: model rates", meta.protocol),
-                ("sans-serif", 18),
-            )
+            .caption(format!("{}: model rates", meta.protocol), ("sans-serif", 18))
             .margin(12)
             .x_label_area_size(36)
             .y_label_area_size(56)
@@ -44,17 +41,10 @@ pub fn responses_svg(rates: &Array2<f32>, meta: &Meta) -> Result<String, String>
             .draw()
             .map_err(|e| e.to_string())?;
         for e in &meta.events {
-            let colour = if e.name.contains("omitted") || e.name == "reversal" {
-                RED
-            } else {
-                RGBColor(200, 200, 200)
-            };
+            let colour = if e.name.contains("omitted") || e.name == "reversal" { RED } else { RGBColor(200, 200, 200) };
             let x = ms(e.frame);
             chart
-                .draw_series(LineSeries::new(
-                    [(x, low), (x, top)],
-                    colour.stroke_width(1),
-                ))
+                .draw_series(LineSeries::new([(x, low), (x, top)], colour.stroke_width(1)))
                 .map_err(|e| e.to_string())?;
         }
         for c in 0..rates.ncols().min(MAX_CELLS) {
@@ -66,9 +56,7 @@ pub fn responses_svg(rates: &Array2<f32>, meta: &Meta) -> Result<String, String>
                 ))
                 .map_err(|e| e.to_string())?
                 .label(format!("cell {c}"))
-                .legend(move |(x, y)| {
-                    PathElement::new([(x, y), (x + 16, y)], colour.stroke_width(2))
-                });
+                .legend(move |(x, y)| PathElement::new([(x, y), (x + 16, y)], colour.stroke_width(2)));
         }
         chart
             .configure_series_labels()

@@ -30,8 +30,7 @@ pub fn write_responses(
         csv.push('\n');
     }
     out.write_bytes("responses.csv", csv.as_bytes())?;
-    let svg = super::responses_svg(rates, meta)
-        .map_err(|e| Error::Usage(format!("cannot draw responses.svg: {e}")))?;
+    let svg = super::responses_svg(rates, meta).map_err(|e| Error::Usage(format!("cannot draw responses.svg: {e}")))?;
     out.write_bytes("responses.svg", svg.as_bytes())?;
     for (name, a) in &measured.arrays {
         out.write_npy(&format!("{name}.npy"), a)?;

@@ -30,10 +30,7 @@ impl Canvas {
             )));
         }
         if !(self.frame_rate_hz > 0.0 && self.frame_rate_hz <= 10_000.0) {
-            return Err(Error::Usage(format!(
-                "frame rate must be in (0, 10000] Hz, not {}",
-                self.frame_rate_hz
-            )));
+            return Err(Error::Usage(format!("frame rate must be in (0, 10000] Hz, not {}", self.frame_rate_hz)));
         }
         if !(self.pixel_um > 0.0 && self.pixel_um.is_finite()) {
             return Err(Error::Usage(format!(
@@ -94,13 +91,7 @@ mod tests {
 
     #[test]
     fn durations_round_to_frames() {
-        let c = Canvas {
-            height: 4,
-            width: 4,
-            lags: 2,
-            frame_rate_hz: 60.0,
-            pixel_um: 50.0,
-        };
+        let c = Canvas { height: 4, width: 4, lags: 2, frame_rate_hz: 60.0, pixel_um: 50.0 };
         assert_eq!(c.frames(100.0), 6);
         assert!((c.ms(6.0) - 100.0).abs() < 1e-9);
     }

@@ -111,39 +111,19 @@ pub struct Stimulus {
 
 impl Stimulus {
     /// Prepend `canvas.lags` gray frames to a drawn protocol and shift its events and windows.
-    pub fn assemble(
-        protocol: &str,
-        params: &Params,
-        canvas: &Canvas,
-        seed: u64,
-        drawn: Drawn,
-    ) -> Stimulus {
+    pub fn assemble(protocol: &str, params: &Params, canvas: &Canvas, seed: u64, drawn: Drawn) -> Stimulus {
         let h = canvas.lags;
         let mut movie = canvas.blank(h + drawn.movie.shape()[0]);
-        movie
-            .slice_mut(ndarray::s![h.., .., ..])
-            .assign(&drawn.movie);
-        let shift_e = |e: Event| Event {
-            frame: e.frame + h,
-            ..e
-        };
-        let shift_w = |w: Window| Window {
-            start: w.start + h,
-            end: w.end + h,
-            ..w
-        };
+        movie.slice_mut(ndarray::s![h.., .., ..]).assign(&drawn.movie);
+        let shift_e = |e: Event| Event { frame: e.frame + h, ..e };
+        let shift_w = |w: Window| Window { start: w.start + h, end: w.end + h, ..w };
         let meta = Meta {
             schema: "sufficit/1".into(),
             protocol: protocol.into(),
             parameters: params
                 .recorded()
                 .into_iter()
-                .map(|(k, v)| {
-                    (
-                        k,
-                        serde_json::to_value(v).unwrap_or(serde_json::Value::Null),
-                    )
-                })
+                .map(|(k, v)| (k, serde_json::to_value(v).unwrap_or(serde_json::Value::Null)))
                 .collect(),
             frame_rate_hz: canvas.frame_rate_hz,
             pixel_size_um: canvas.pixel_um,

@@ -49,16 +49,7 @@ impl Spec {
         source: &'static str,
         doc: &'static str,
     ) -> Self {
-        Spec {
-            name,
-            unit,
-            default: Value::Num(default),
-            min,
-            max,
-            choices: &[],
-            source,
-            doc,
-        }
+        Spec { name, unit, default: Value::Num(default), min, max, choices: &[], source, doc }
     }
 
     /// A list parameter with a default list.
@@ -71,16 +62,7 @@ impl Spec {
         source: &'static str,
         doc: &'static str,
     ) -> Self {
-        Spec {
-            name,
-            unit,
-            default: Value::List(default.to_vec()),
-            min,
-            max,
-            choices: &[],
-            source,
-            doc,
-        }
+        Spec { name, unit, default: Value::List(default.to_vec()), min, max, choices: &[], source, doc }
     }
 
     /// A choice among fixed texts (or free text when `choices` is empty).
@@ -91,27 +73,14 @@ impl Spec {
         source: &'static str,
         doc: &'static str,
     ) -> Self {
-        Spec {
-            name,
-            unit: "",
-            default: Value::Text(default.into()),
-            min: 0.0,
-            max: 0.0,
-            choices,
-            source,
-            doc,
-        }
+        Spec { name, unit: "", default: Value::Text(default.into()), min: 0.0, max: 0.0, choices, source, doc }
     }
 
     /// The default as shown by `--describe`.
     pub fn default_text(&self) -> String {
         match &self.default {
             Value::Num(v) => v.to_string(),
-            Value::List(l) => l
-                .iter()
-                .map(|v| v.to_string())
-                .collect::<Vec<_>>()
-                .join(","),
+            Value::List(l) => l.iter().map(|v| v.to_string()).collect::<Vec<_>>().join(","),
             Value::Text(t) => t.clone(),
         }
     }
@@ -138,18 +107,14 @@ pub struct Params {
 impl Params {
     /// Parse `name=value` arguments against `specs` for `protocol`.
     pub fn parse(protocol: &str, specs: Vec<Spec>, args: &[String]) -> Result<Self> {
-        let mut values: BTreeMap<&'static str, Value> =
-            specs.iter().map(|s| (s.name, s.default.clone())).collect();
+        let mut values: BTreeMap<&'static str, Value> = specs.iter().map(|s| (s.name, s.default.clone())).collect();
         for a in args {
             let (name, raw) = a.split_once('=').ok_or_else(|| {
                 Error::Usage(format!("'{a}' is not a parameter setting; write NAME=VALUE (see `sufficit stimulus --describe {protocol}`)"))
             })?;
             let spec = specs.iter().find(|s| s.name == name).ok_or_else(|| {
                 let names: Vec<_> = specs.iter().map(|s| s.name).collect();
-                Error::Usage(format!(
-                    "{protocol} has no parameter '{name}'; it has: {}",
-                    names.join(", ")
-                ))
+                Error::Usage(format!("{protocol} has no parameter '{name}'; it has: {}", names.join(", ")))
             })?;
             let v = match &spec.default {
                 Value::Num(_) => Value::Num(number(protocol, name, raw)?),
@@ -171,21 +136,11 @@ impl Params {
     fn check(&self, protocol: &str) -> Result<()> {
         for s in &self.specs {
             let bad = |v: f64| !(v.is_finite() && v >= s.min && v <= s.max);
-            let range = || {
-                format!(
-                    "{protocol}: {} must be between {} and {} {}",
-                    s.name, s.min, s.max, s.unit
-                )
-            };
+            let range = || format!("{protocol}: {} must be between {} and {} {}", s.name, s.min, s.max, s.unit);
             match &self.values[s.name] {
-                Value::Num(v) if bad(*v) => {
-                    return Err(Error::Usage(format!("{}, not {v}", range())))
-                }
+                Value::Num(v) if bad(*v) => return Err(Error::Usage(format!("{}, not {v}", range()))),
                 Value::List(l) if l.is_empty() => {
-                    return Err(Error::Usage(format!(
-                        "{protocol}: {} needs at least one value",
-                        s.name
-                    )))
+                    return Err(Error::Usage(format!("{protocol}: {} needs at least one value", s.name)))
                 }
                 Value::List(l) if l.iter().any(|&v| bad(v)) => {
                     return Err(Error::Usage(format!("{} (each value), not {l:?}", range())))
@@ -232,21 +187,12 @@ impl Params {
         self.specs
             .iter()
             .map(|s| {
-                (
-                    s.name.to_string(),
-                    Recorded {
-                        value: self.values[s.name].clone(),
-                        unit: s.unit,
-                        source: s.source,
-                    },
-                )
+                (s.name.to_string(), Recorded { value: self.values[s.name].clone(), unit: s.unit, source: s.source })
             })
             .collect()
     }
 }
 
 fn number(protocol: &str, name: &str, raw: &str) -> Result<f64> {
-    raw.trim()
-        .parse::<f64>()
-        .map_err(|_| Error::Usage(format!("{protocol}: {name} must be a number, not '{raw}'")))
+    raw.trim().parse::<f64>().map_err(|_| Error::Usage(format!("{protocol}: {name} must be a number, not '{raw}'")))
 }

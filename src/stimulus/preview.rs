@@ -32,10 +32,7 @@ fn chosen(stim: &Stimulus) -> Vec<(usize, Option<Rgb<u8>>)> {
     if frames.is_empty() {
         let n = m.frames.saturating_sub(m.history_frames);
         let step = n.div_ceil(MAX_TILES).max(1);
-        frames = (m.history_frames..m.frames)
-            .step_by(step)
-            .map(|f| (f, None))
-            .collect();
+        frames = (m.history_frames..m.frames).step_by(step).map(|f| (f, None)).collect();
     }
     frames.truncate(MAX_TILES);
     frames

@@ -68,17 +68,9 @@ pub fn tiny_parts() -> (Vec<pb::NodeProto>, Vec<pb::TensorProto>) {
         node("Gemm", "readout", &["f", "k", "kb"], "y"),
     ];
     let inits = vec![
-        floats(
-            "w",
-            &[2, 3, 3, 3],
-            (0..54).map(|i| ((i * 7) % 11) as f32 * 0.1 - 0.5).collect(),
-        ),
+        floats("w", &[2, 3, 3, 3], (0..54).map(|i| ((i * 7) % 11) as f32 * 0.1 - 0.5).collect()),
         floats("b", &[2], vec![0.1, -0.1]),
-        floats(
-            "k",
-            &[18, 2],
-            (0..36).map(|i| ((i * 5) % 9) as f32 * 0.1 - 0.4).collect(),
-        ),
+        floats("k", &[18, 2], (0..36).map(|i| ((i * 5) % 9) as f32 * 0.1 - 0.4).collect()),
         floats("kb", &[2], vec![0.0, 0.2]),
     ];
     (nodes, inits)
@@ -104,10 +96,7 @@ pub fn model(
 pub fn model_of(graph: pb::GraphProto) -> pb::ModelProto {
     pb::ModelProto {
         ir_version: 8,
-        opset_import: vec![pb::OperatorSetIdProto {
-            domain: String::new(),
-            version: 13,
-        }],
+        opset_import: vec![pb::OperatorSetIdProto { domain: String::new(), version: 13 }],
         graph: Some(graph),
         ..Default::default()
     }

@@ -14,16 +14,8 @@ pub struct BuildCtx<'a> {
 
 impl<'a> BuildCtx<'a> {
     /// A context for `node` under `opset`; `constant` looks up constant values by name.
-    pub fn new(
-        node: &'a NodeProto,
-        opset: i64,
-        constant: &'a dyn Fn(&str) -> Option<&'a Tensor>,
-    ) -> Self {
-        BuildCtx {
-            node,
-            opset,
-            constant,
-        }
+    pub fn new(node: &'a NodeProto, opset: i64, constant: &'a dyn Fn(&str) -> Option<&'a Tensor>) -> Self {
+        BuildCtx { node, opset, constant }
     }
 
     /// The ONNX op_type.
@@ -44,10 +36,7 @@ impl<'a> BuildCtx<'a> {
     /// Number of inputs, counting trailing optional inputs given as "" as absent.
     pub fn input_count(&self) -> usize {
         let inputs = &self.node.input;
-        inputs
-            .iter()
-            .rposition(|s| !s.is_empty())
-            .map_or(0, |i| i + 1)
+        inputs.iter().rposition(|s| !s.is_empty()).map_or(0, |i| i + 1)
     }
 
     /// True when input `i` is given (present and not the empty name).
@@ -88,9 +77,7 @@ impl<'a> BuildCtx<'a> {
         let t = self.constant_input(i, what)?;
         match t.len() {
             1 => Ok(t.iter().next().copied()),
-            n => Err(OpError(format!(
-                "input {i} ({what}) must be a scalar, found {n} values"
-            ))),
+            n => Err(OpError(format!("input {i} ({what}) must be a scalar, found {n} values"))),
         }
     }
 
@@ -120,8 +107,7 @@ impl<'a> BuildCtx<'a> {
 
     /// A string attribute.
     pub fn string(&self, name: &str) -> Option<String> {
-        self.attr(name)
-            .map(|a| String::from_utf8_lossy(&a.s).into_owned())
+        self.attr(name).map(|a| String::from_utf8_lossy(&a.s).into_owned())
     }
 
     /// The raw attribute, for ops that read tensors from attributes.
@@ -136,11 +122,8 @@ impl<'a> BuildCtx<'a> {
             Some(v) => v
                 .iter()
                 .map(|&x| {
-                    usize::try_from(x).map_err(|_| {
-                        OpError(format!(
-                            "attribute '{name}' must be non-negative, found {v:?}"
-                        ))
-                    })
+                    usize::try_from(x)
+                        .map_err(|_| OpError(format!("attribute '{name}' must be non-negative, found {v:?}")))
                 })
                 .collect::<OpResult<Vec<_>>>()
                 .map(Some),

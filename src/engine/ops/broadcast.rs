@@ -16,11 +16,7 @@ pub fn broadcast_shape(a: &[usize], b: &[usize]) -> OpResult<Vec<usize>> {
             (x, y) if x == y => x,
             (1, y) => y,
             (x, 1) => x,
-            _ => {
-                return Err(OpError(format!(
-                    "shapes {a:?} and {b:?} cannot be broadcast together"
-                )))
-            }
+            _ => return Err(OpError(format!("shapes {a:?} and {b:?} cannot be broadcast together"))),
         };
     }
     Ok(out)
@@ -36,8 +32,7 @@ fn dim_from_right(shape: &[usize], k: usize) -> usize {
 
 /// A read-only view of `t` broadcast to `shape`.
 pub fn view_as<'a>(t: &'a Tensor, shape: &[usize]) -> OpResult<ndarray::ArrayViewD<'a, f32>> {
-    t.broadcast(IxDyn(shape))
-        .ok_or_else(|| OpError(format!("cannot broadcast {:?} to {:?}", t.shape(), shape)))
+    t.broadcast(IxDyn(shape)).ok_or_else(|| OpError(format!("cannot broadcast {:?} to {:?}", t.shape(), shape)))
 }
 
 /// Sum `grad` (shaped like the broadcast output) down to `shape`: the adjoint of broadcasting.
@@ -66,26 +61,11 @@ mod tests {
     #[test]
     fn shapes_follow_the_onnx_broadcasting_rules() {
         // Examples from the ONNX specification, Broadcasting.md.
-        assert_eq!(
-            broadcast_shape(&[2, 3, 4, 5], &[]).unwrap(),
-            vec![2, 3, 4, 5]
-        );
-        assert_eq!(
-            broadcast_shape(&[2, 3, 4, 5], &[5]).unwrap(),
-            vec![2, 3, 4, 5]
-        );
-        assert_eq!(
-            broadcast_shape(&[4, 5], &[2, 3, 4, 5]).unwrap(),
-            vec![2, 3, 4, 5]
-        );
-        assert_eq!(
-            broadcast_shape(&[1, 4, 5], &[2, 3, 1, 1]).unwrap(),
-            vec![2, 3, 4, 5]
-        );
-        assert_eq!(
-            broadcast_shape(&[3, 4, 5], &[2, 1, 1, 1]).unwrap(),
-            vec![2, 3, 4, 5]
-        );
+        assert_eq!(broadcast_shape(&[2, 3, 4, 5], &[]).unwrap(), vec![2, 3, 4, 5]);
+        assert_eq!(broadcast_shape(&[2, 3, 4, 5], &[5]).unwrap(), vec![2, 3, 4, 5]);
+        assert_eq!(broadcast_shape(&[4, 5], &[2, 3, 4, 5]).unwrap(), vec![2, 3, 4, 5]);
+        assert_eq!(broadcast_shape(&[1, 4, 5], &[2, 3, 1, 1]).unwrap(), vec![2, 3, 4, 5]);
+        assert_eq!(broadcast_shape(&[3, 4, 5], &[2, 1, 1, 1]).unwrap(), vec![2, 3, 4, 5]);
         assert!(broadcast_shape(&[2, 3], &[4]).is_err());
     }
 
@@ -94,9 +74,7 @@ mod tests {
         let g = ArrayD::from_shape_fn(IxDyn(&[2, 3, 4]), |i| (i[0] * 12 + i[1] * 4 + i[2]) as f32);
         let s = sum_to_shape(&g, &[3, 1]);
         assert_eq!(s.shape(), &[3, 1]);
-        let expected: f32 = (0..2)
-            .flat_map(|a| (0..4).map(move |c| (a * 12 + 4 + c) as f32))
-            .sum();
+        let expected: f32 = (0..2).flat_map(|a| (0..4).map(move |c| (a * 12 + 4 + c) as f32)).sum();
         assert_eq!(s[[1, 0]], expected);
     }
 }

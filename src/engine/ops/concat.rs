@@ -30,11 +30,7 @@ impl Op for Concat {
         let mut out = Vec::with_capacity(args.inputs.len());
         for (t, &want) in args.inputs.iter().zip(args.wants) {
             let len = t.shape()[axis];
-            out.push(want.then(|| {
-                args.grad
-                    .slice_axis(Axis(axis), Slice::from(start..start + len))
-                    .to_owned()
-            }));
+            out.push(want.then(|| args.grad.slice_axis(Axis(axis), Slice::from(start..start + len)).to_owned()));
             start += len;
         }
         Ok(out)
@@ -53,13 +49,7 @@ mod tests {
 
     #[test]
     fn matches_tract_and_finite_differences() {
-        check_node(
-            node("Concat", &[("axis", Attr::I(1))]),
-            &[&[2, 3, 2], &[2, 1, 2], &[2, 2, 2]],
-        );
-        check_node(
-            node("Concat", &[("axis", Attr::I(-1))]),
-            &[&[2, 3], &[2, 4]],
-        );
+        check_node(node("Concat", &[("axis", Attr::I(1))]), &[&[2, 3, 2], &[2, 1, 2], &[2, 2, 2]]);
+        check_node(node("Concat", &[("axis", Attr::I(-1))]), &[&[2, 3], &[2, 4]]);
     }
 }

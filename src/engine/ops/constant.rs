@@ -55,8 +55,7 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
     } else if let Some(a) = ctx.raw("value_float") {
         arr0(a.f).into_dyn()
     } else if let Some(a) = ctx.raw("value_floats") {
-        ArrayD::from_shape_vec(IxDyn(&[a.floats.len()]), a.floats.clone())
-            .map_err(|e| e.to_string())?
+        ArrayD::from_shape_vec(IxDyn(&[a.floats.len()]), a.floats.clone()).map_err(|e| e.to_string())?
     } else if let Some(a) = ctx.raw("value_int") {
         arr0(a.i as f32).into_dyn()
     } else if let Some(a) = ctx.raw("value_ints") {
@@ -65,20 +64,13 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
     } else {
         return Err("no value attribute (value, value_float(s), value_int(s)) is set".into());
     };
-    Ok(Built {
-        op: Box::new(Constant { value }),
-        data_inputs: vec![],
-    })
+    Ok(Built { op: Box::new(Constant { value }), data_inputs: vec![] })
 }
 
 /// Build ConstantOfShape: the fill value is a one-element tensor attribute (default 0).
 pub fn build_of_shape(ctx: &BuildCtx) -> OpResult<Built> {
     let value = match ctx.raw("value").and_then(|a| a.t.as_ref()) {
-        Some(t) => tensor_proto::decode(t)?
-            .iter()
-            .next()
-            .copied()
-            .unwrap_or(0.0),
+        Some(t) => tensor_proto::decode(t)?.iter().next().copied().unwrap_or(0.0),
         None => 0.0,
     };
     Ok(Built::first(ConstantOfShape { value }, 1))
@@ -90,10 +82,6 @@ mod tests {
 
     #[test]
     fn constant_of_shape_matches_tract() {
-        check_graph(
-            node_io("ConstantOfShape", &["s"], &[]),
-            &[],
-            vec![ints_init("s", &[2, 3])],
-        );
+        check_graph(node_io("ConstantOfShape", &["s"], &[]), &[], vec![ints_init("s", &[2, 3])]);
     }
 }

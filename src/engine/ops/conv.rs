@@ -49,12 +49,7 @@ impl Conv {
         }
         let (n, cin, cout, cig) = (x.shape()[0], x.shape()[1], w.shape()[0], w.shape()[1]);
         if w.shape()[2..] != self.attrs.kernel[..] {
-            return Err(format!(
-                "weights {:?} disagree with kernel_shape {:?}",
-                w.shape(),
-                self.attrs.kernel
-            )
-            .into());
+            return Err(format!("weights {:?} disagree with kernel_shape {:?}", w.shape(), self.attrs.kernel).into());
         }
         if cin != cig * self.group || cout % self.group != 0 {
             return Err(format!(
@@ -93,60 +88,43 @@ impl Op for Conv {
         let d = self.dims(x, w)?;
         let x = x.as_standard_layout();
         let w = w.as_standard_layout();
-        let (xs, ws) = (
-            x.as_slice().ok_or("input layout")?,
-            w.as_slice().ok_or("weight layout")?,
-        );
+        let (xs, ws) = (x.as_slice().ok_or("input layout")?, w.as_slice().ok_or("weight layout")?);
         let (ilen, olen) = (d.geo.input.iter().product::<usize>(), d.geo.valid.len());
         let packed = Packed::applies(&d).then(|| Packed::for_forward(&d, ws));
         let mut y = vec![0f32; d.n * d.cout * olen];
-        y.par_chunks_mut(d.cout * olen)
-            .enumerate()
-            .for_each(|(s, ys)| {
-                let xp = d
-                    .geo
-                    .pad(&xs[s * d.cin * ilen..(s + 1) * d.cin * ilen], d.cin, 0.0);
-                let (plen, vlen) = (d.geo.padded_len(), d.geo.virtual_len);
-                let mut yv = vec![0f32; d.cout * vlen];
-                if let Some(p) = &packed {
-                    p.forward(&d, &xp, &mut yv);
-                }
-                for g in (0..self.group).filter(|_| packed.is_none()) {
-                    for (kidx, &koff) in d.geo.kernel_offsets.iter().enumerate() {
-                        for seg in &d.geo.segments {
-                            matmul_acc(
-                                d.cog,
-                                seg.len,
-                                d.cig,
-                                MatMut {
-                                    data: &mut yv,
-                                    offset: g * d.cog * vlen + seg.q0,
-                                    rs: vlen,
-                                    cs: 1,
-                                },
-                                Mat {
-                                    data: ws,
-                                    offset: g * d.cog * d.cig * d.kvol + kidx,
-                                    rs: d.cig * d.kvol,
-                                    cs: d.kvol,
-                                },
-                                Mat {
-                                    data: &xp,
-                                    offset: g * d.cig * plen + seg.in0 + koff,
-                                    rs: plen,
-                                    cs: d.geo.col_stride,
-                                },
-                            );
-                        }
+        y.par_chunks_mut(d.cout * olen).enumerate().for_each(|(s, ys)| {
+            let xp = d.geo.pad(&xs[s * d.cin * ilen..(s + 1) * d.cin * ilen], d.cin, 0.0);
+            let (plen, vlen) = (d.geo.padded_len(), d.geo.virtual_len);
+            let mut yv = vec![0f32; d.cout * vlen];
+            if let Some(p) = &packed {
+                p.forward(&d, &xp, &mut yv);
+            }
+            for g in (0..self.group).filter(|_| packed.is_none()) {
+                for (kidx, &koff) in d.geo.kernel_offsets.iter().enumerate() {
+                    for seg in &d.geo.segments {
+                        matmul_acc(
+                            d.cog,
+                            seg.len,
+                            d.cig,
+                            MatMut { data: &mut yv, offset: g * d.cog * vlen + seg.q0, rs: vlen, cs: 1 },
+                            Mat { data: ws, offset: g * d.cog * d.cig * d.kvol + kidx, rs: d.cig * d.kvol, cs: d.kvol },
+                            Mat {
+                                data: &xp,
+                                offset: g * d.cig * plen + seg.in0 + koff,
+                                rs: plen,
+                                cs: d.geo.col_stride,
+                            },
+                        );
                     }
                 }
-                for c in 0..d.cout {
-                    let bias = inputs.get(2).map_or(0.0, |b| b[[c]]);
-                    for (i, &q) in d.geo.valid.iter().enumerate() {
-                        ys[c * olen + i] = yv[c * vlen + q] + bias;
-                    }
+            }
+            for c in 0..d.cout {
+                let bias = inputs.get(2).map_or(0.0, |b| b[[c]]);
+                for (i, &q) in d.geo.valid.iter().enumerate() {
+                    ys[c * olen + i] = yv[c * vlen + q] + bias;
                 }
-            });
+            }
+        });
         let mut shape = vec![d.n, d.cout];
         shape.extend(&d.geo.output);
         Ok(ArrayD::from_shape_vec(IxDyn(&shape), y).map_err(|e| e.to_string())?)
@@ -177,15 +155,8 @@ impl Op for Conv {
                     gv[c * vlen + q] = gs[(s * d.cout + c) * olen + i];
                 }
             }
-            let xp = want_w.then(|| {
-                d.geo
-                    .pad(&xs[s * d.cin * ilen..(s + 1) * d.cin * ilen], d.cin, 0.0)
-            });
-            let mut gxp = if want_x {
-                vec![0f32; d.cin * plen]
-            } else {
-                Vec::new()
-            };
+            let xp = want_w.then(|| d.geo.pad(&xs[s * d.cin * ilen..(s + 1) * d.cin * ilen], d.cin, 0.0));
+            let mut gxp = if want_x { vec![0f32; d.cin * plen] } else { Vec::new() };
             let mut gw = if want_w { vec![0f32; wlen] } else { Vec::new() };
             if let (true, Some(packed)) = (want_x, &packed) {
                 packed.input_gradient(&d, &gv, &mut gxp);
@@ -193,12 +164,7 @@ impl Op for Conv {
             for g in 0..self.group {
                 for (kidx, &koff) in d.geo.kernel_offsets.iter().enumerate() {
                     for seg in &d.geo.segments {
-                        let gv_win = Mat {
-                            data: &gv,
-                            offset: g * d.cog * vlen + seg.q0,
-                            rs: vlen,
-                            cs: 1,
-                        };
+                        let gv_win = Mat { data: &gv, offset: g * d.cog * vlen + seg.q0, rs: vlen, cs: 1 };
                         if want_x && packed.is_none() {
                             matmul_acc(
                                 d.cig,
@@ -242,31 +208,22 @@ impl Op for Conv {
                     }
                 }
             }
-            let gx = if want_x {
-                d.geo.unpad(&gxp, d.cin)
-            } else {
-                Vec::new()
-            };
+            let gx = if want_x { d.geo.unpad(&gxp, d.cin) } else { Vec::new() };
             (gx, gw)
         };
 
         let results: Vec<(Vec<f32>, Vec<f32>)> = (0..d.n).into_par_iter().map(per_sample).collect();
         let mut out = vec![None; args.inputs.len()];
         if want_x {
-            let flat: Vec<f32> = results
-                .iter()
-                .flat_map(|(gx, _)| gx.iter().copied())
-                .collect();
-            out[0] =
-                Some(ArrayD::from_shape_vec(IxDyn(x.shape()), flat).map_err(|e| e.to_string())?);
+            let flat: Vec<f32> = results.iter().flat_map(|(gx, _)| gx.iter().copied()).collect();
+            out[0] = Some(ArrayD::from_shape_vec(IxDyn(x.shape()), flat).map_err(|e| e.to_string())?);
         }
         if want_w {
             let mut total = vec![0f32; wlen];
             for (_, gw) in &results {
                 total.iter_mut().zip(gw).for_each(|(t, v)| *t += v);
             }
-            out[1] =
-                Some(ArrayD::from_shape_vec(IxDyn(w.shape()), total).map_err(|e| e.to_string())?);
+            out[1] = Some(ArrayD::from_shape_vec(IxDyn(w.shape()), total).map_err(|e| e.to_string())?);
         }
         if args.inputs.len() > 2 && args.wants[2] {
             let mut gb = gy.to_owned();
@@ -279,19 +236,13 @@ impl Op for Conv {
     }
 
     fn spatial_footprint(&self) -> Option<Footprint> {
-        Some(Footprint {
-            extent: self.attrs.extent(),
-            stride: self.attrs.strides.clone(),
-        })
+        Some(Footprint { extent: self.attrs.extent(), stride: self.attrs.strides.clone() })
     }
 }
 
 /// Build from a node; the kernel size defaults to the weights' spatial shape.
 pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
-    let kernel = ctx
-        .constant_input(1, "W")
-        .ok()
-        .map(|w| w.shape().get(2..).unwrap_or_default().to_vec());
+    let kernel = ctx.constant_input(1, "W").ok().map(|w| w.shape().get(2..).unwrap_or_default().to_vec());
     let attrs = WindowAttrs::read(ctx, kernel)?;
     let group = usize::try_from(ctx.int_or("group", 1))
         .ok()
@@ -318,66 +269,25 @@ mod tests {
     #[test]
     fn conv2d_matches_tract_and_finite_differences() {
         case(&[], &[2, 3, 7, 6], &[4, 3, 3, 2], true);
-        case(
-            &[("pads", Attr::Is(vec![1, 2, 0, 1]))],
-            &[1, 2, 5, 5],
-            &[3, 2, 3, 3],
-            true,
-        );
-        case(
-            &[("strides", Attr::Is(vec![2, 2]))],
-            &[2, 2, 7, 8],
-            &[3, 2, 3, 3],
-            false,
-        );
-        case(
-            &[("strides", Attr::Is(vec![1, 2]))],
-            &[1, 2, 6, 8],
-            &[2, 2, 2, 3],
-            true,
-        );
-        case(
-            &[("dilations", Attr::Is(vec![2, 1]))],
-            &[1, 2, 7, 5],
-            &[2, 2, 2, 2],
-            true,
-        );
+        case(&[("pads", Attr::Is(vec![1, 2, 0, 1]))], &[1, 2, 5, 5], &[3, 2, 3, 3], true);
+        case(&[("strides", Attr::Is(vec![2, 2]))], &[2, 2, 7, 8], &[3, 2, 3, 3], false);
+        case(&[("strides", Attr::Is(vec![1, 2]))], &[1, 2, 6, 8], &[2, 2, 2, 3], true);
+        case(&[("dilations", Attr::Is(vec![2, 1]))], &[1, 2, 7, 5], &[2, 2, 2, 2], true);
         case(&[("group", Attr::I(2))], &[2, 4, 5, 5], &[6, 2, 3, 3], true);
         case(
-            &[
-                ("auto_pad", Attr::S("SAME_UPPER")),
-                ("strides", Attr::Is(vec![2, 2])),
-            ],
+            &[("auto_pad", Attr::S("SAME_UPPER")), ("strides", Attr::Is(vec![2, 2]))],
             &[1, 2, 7, 6],
             &[2, 2, 3, 3],
             true,
         );
-        case(
-            &[("auto_pad", Attr::S("SAME_LOWER"))],
-            &[1, 2, 6, 6],
-            &[2, 2, 2, 2],
-            true,
-        );
+        case(&[("auto_pad", Attr::S("SAME_LOWER"))], &[1, 2, 6, 6], &[2, 2, 2, 2], true);
     }
 
     #[test]
     fn conv1d_and_conv3d_match_tract_and_finite_differences() {
         case(&[], &[2, 3, 11], &[4, 3, 4], true);
-        case(
-            &[
-                ("pads", Attr::Is(vec![1, 1])),
-                ("strides", Attr::Is(vec![2])),
-            ],
-            &[2, 3, 9],
-            &[2, 3, 3],
-            true,
-        );
+        case(&[("pads", Attr::Is(vec![1, 1])), ("strides", Attr::Is(vec![2]))], &[2, 3, 9], &[2, 3, 3], true);
         case(&[], &[2, 1, 5, 6, 6], &[3, 1, 3, 3, 2], true);
-        case(
-            &[("pads", Attr::Is(vec![0, 1, 1, 1, 0, 0]))],
-            &[1, 2, 4, 5, 5],
-            &[2, 2, 2, 3, 3],
-            false,
-        );
+        case(&[("pads", Attr::Is(vec![0, 1, 1, 1, 0, 0]))], &[1, 2, 4, 5, 5], &[2, 2, 2, 3, 3], false);
     }
 }

@@ -53,12 +53,7 @@ impl Packed {
     /// `yv += W * x` for one sample: `xp` is the padded input, `yv` the virtual output.
     /// Columns are processed in tiles so the working set stays in the core's L2 cache.
     pub fn forward(&self, d: &Dims, xp: &[f32], yv: &mut [f32]) {
-        let (vlen, plen, kw, dil) = (
-            d.geo.virtual_len,
-            d.geo.padded_len(),
-            d.kernel_last,
-            d.dilation_last,
-        );
+        let (vlen, plen, kw, dil) = (d.geo.virtual_len, d.geo.padded_len(), d.kernel_last, d.dilation_last);
         let rows = d.cog * kw;
         let halo = (kw - 1) * dil;
         let mut z = vec![0f32; rows * (TILE + halo)];
@@ -72,18 +67,8 @@ impl Packed {
                         rows,
                         n,
                         d.cig,
-                        MatMut {
-                            data: &mut z,
-                            offset: 0,
-                            rs: n,
-                            cs: 1,
-                        },
-                        Mat {
-                            data: &self.weights,
-                            offset: (g * self.outer + o) * rows * d.cig,
-                            rs: d.cig,
-                            cs: 1,
-                        },
+                        MatMut { data: &mut z, offset: 0, rs: n, cs: 1 },
+                        Mat { data: &self.weights, offset: (g * self.outer + o) * rows * d.cig, rs: d.cig, cs: 1 },
                         Mat {
                             data: xp,
                             offset: g * d.cig * plen + d.geo.kernel_offsets[o * kw] + start,
@@ -97,9 +82,7 @@ impl Packed {
                     let out = &mut yv[at..at + len];
                     for j in 0..kw {
                         let from = (co * kw + j) * n + j * dil;
-                        out.iter_mut()
-                            .zip(&z[from..from + len])
-                            .for_each(|(y, v)| *y += v);
+                        out.iter_mut().zip(&z[from..from + len]).for_each(|(y, v)| *y += v);
                     }
                 }
             }
@@ -129,8 +112,7 @@ impl Packed {
                 for r in 0..rows {
                     for c in 0..chans {
                         for j in 0..kw {
-                            weights[((g * outer + o) * rows + r) * inner + c * kw + j] =
-                                w[source(g, o, r, c, j)];
+                            weights[((g * outer + o) * rows + r) * inner + c * kw + j] = w[source(g, o, r, c, j)];
                         }
                     }
                 }
@@ -141,12 +123,7 @@ impl Packed {
 
     /// `gxp += W^T * dy` for one sample; `gv` is dy in the virtual layout.
     pub fn input_gradient(&self, d: &Dims, gv: &[f32], gxp: &mut [f32]) {
-        let (vlen, plen, kw, dil) = (
-            d.geo.virtual_len,
-            d.geo.padded_len(),
-            d.kernel_last,
-            d.dilation_last,
-        );
+        let (vlen, plen, kw, dil) = (d.geo.virtual_len, d.geo.padded_len(), d.kernel_last, d.dilation_last);
         let n = vlen + (kw - 1) * dil;
         // shifted[co][j][p] = dy[co][p - j * dilation]
         let mut shifted = vec![0f32; d.cout * kw * n];
@@ -171,18 +148,8 @@ impl Packed {
                             rs: plen,
                             cs: 1,
                         },
-                        Mat {
-                            data: &self.weights,
-                            offset: (g * self.outer + o) * d.cig * inner,
-                            rs: inner,
-                            cs: 1,
-                        },
-                        Mat {
-                            data: &shifted,
-                            offset: g * inner * n + start,
-                            rs: n,
-                            cs: 1,
-                        },
+                        Mat { data: &self.weights, offset: (g * self.outer + o) * d.cig * inner, rs: inner, cs: 1 },
+                        Mat { data: &shifted, offset: g * inner * n + start, rs: n, cs: 1 },
                     );
                 }
             }

@@ -61,33 +61,16 @@ impl WindowAttrs {
         if strides.contains(&0) || dilations.contains(&0) || kernel.contains(&0) {
             return Err("kernel_shape, strides and dilations must be positive".into());
         }
-        if !matches!(
-            auto_pad.as_str(),
-            "NOTSET" | "VALID" | "SAME_UPPER" | "SAME_LOWER"
-        ) {
-            return Err(format!(
-                "auto_pad '{auto_pad}' is not one of NOTSET, VALID, SAME_UPPER, SAME_LOWER"
-            )
-            .into());
+        if !matches!(auto_pad.as_str(), "NOTSET" | "VALID" | "SAME_UPPER" | "SAME_LOWER") {
+            return Err(format!("auto_pad '{auto_pad}' is not one of NOTSET, VALID, SAME_UPPER, SAME_LOWER").into());
         }
         let ceil_mode = ctx.int_or("ceil_mode", 0) != 0;
-        Ok(WindowAttrs {
-            kernel,
-            strides,
-            dilations,
-            auto_pad,
-            pads,
-            ceil_mode,
-        })
+        Ok(WindowAttrs { kernel, strides, dilations, auto_pad, pads, ceil_mode })
     }
 
     /// Effective kernel extent per axis, dilation included.
     pub fn extent(&self) -> Vec<usize> {
-        self.kernel
-            .iter()
-            .zip(&self.dilations)
-            .map(|(k, d)| (k - 1) * d + 1)
-            .collect()
+        self.kernel.iter().zip(&self.dilations).map(|(k, d)| (k - 1) * d + 1).collect()
     }
 }
 
@@ -128,15 +111,7 @@ fn row_major_strides(shape: &[usize]) -> Vec<usize> {
 pub fn indices(shape: &[usize]) -> Vec<Vec<usize>> {
     let total: usize = shape.iter().product();
     let strides = row_major_strides(shape);
-    (0..total)
-        .map(|i| {
-            shape
-                .iter()
-                .zip(&strides)
-                .map(|(&n, &s)| (i / s) % n.max(1))
-                .collect()
-        })
-        .collect()
+    (0..total).map(|i| shape.iter().zip(&strides).map(|(&n, &s)| (i / s) % n.max(1)).collect()).collect()
 }
 
 impl Geometry {
@@ -144,11 +119,7 @@ impl Geometry {
     pub fn new(a: &WindowAttrs, input: &[usize]) -> OpResult<Self> {
         let r = a.kernel.len();
         if input.len() != r {
-            return Err(format!(
-                "input has {} spatial axes but the kernel has {r}",
-                input.len()
-            )
-            .into());
+            return Err(format!("input has {} spatial axes but the kernel has {r}", input.len()).into());
         }
         let extent = a.extent();
         let (mut pad_begin, mut pad_end) = (vec![0; r], vec![0; r]);
@@ -158,11 +129,7 @@ impl Geometry {
                     let out = input[d].div_ceil(a.strides[d]);
                     let need = ((out - 1) * a.strides[d] + extent[d]).saturating_sub(input[d]);
                     let small = need / 2;
-                    let (b, e) = if a.auto_pad == "SAME_UPPER" {
-                        (small, need - small)
-                    } else {
-                        (need - small, small)
-                    };
+                    let (b, e) = if a.auto_pad == "SAME_UPPER" { (small, need - small) } else { (need - small, small) };
                     pad_begin[d] = b;
                     pad_end[d] = e;
                 }
@@ -173,9 +140,7 @@ impl Geometry {
                 }
             }
         }
-        let mut padded: Vec<usize> = (0..r)
-            .map(|d| input[d] + pad_begin[d] + pad_end[d])
-            .collect();
+        let mut padded: Vec<usize> = (0..r).map(|d| input[d] + pad_begin[d] + pad_end[d]).collect();
         let mut output = Vec::with_capacity(r);
         for d in 0..r {
             if padded[d] < extent[d] {
@@ -187,17 +152,9 @@ impl Geometry {
                 .into());
             }
             let span = padded[d] - extent[d];
-            let o = if a.ceil_mode {
-                span.div_ceil(a.strides[d])
-            } else {
-                span / a.strides[d]
-            } + 1;
+            let o = if a.ceil_mode { span.div_ceil(a.strides[d]) } else { span / a.strides[d] } + 1;
             // With ceil_mode the last window may start past the padded input: the standard drops it.
-            let o = if a.ceil_mode && (o - 1) * a.strides[d] >= input[d] + pad_begin[d] {
-                o - 1
-            } else {
-                o
-            };
+            let o = if a.ceil_mode && (o - 1) * a.strides[d] >= input[d] + pad_begin[d] { o - 1 } else { o };
             output.push(o);
         }
         // Pooling with ceil_mode may read past the padded end: pad the buffer so it can.
@@ -206,22 +163,14 @@ impl Geometry {
             padded[d] = padded[d].max(needed);
         }
         let ps = row_major_strides(&padded);
-        let kernel_offsets = indices(&a.kernel)
-            .iter()
-            .map(|k| (0..r).map(|d| k[d] * a.dilations[d] * ps[d]).sum())
-            .collect();
+        let kernel_offsets =
+            indices(&a.kernel).iter().map(|k| (0..r).map(|d| k[d] * a.dilations[d] * ps[d]).sum()).collect();
         let out_idx = indices(&output);
-        let starts = out_idx
-            .iter()
-            .map(|o| (0..r).map(|d| o[d] * a.strides[d] * ps[d]).sum())
-            .collect();
+        let starts = out_idx.iter().map(|o| (0..r).map(|d| o[d] * a.strides[d] * ps[d]).sum()).collect();
         let uniform = a.strides.iter().all(|&s| s == a.strides[0]);
         let (col_stride, segments, virtual_len, valid) = if uniform {
             let s = a.strides[0];
-            let valid: Vec<usize> = out_idx
-                .iter()
-                .map(|o| (0..r).map(|d| o[d] * ps[d]).sum())
-                .collect();
+            let valid: Vec<usize> = out_idx.iter().map(|o| (0..r).map(|d| o[d] * ps[d]).sum()).collect();
             let len = valid.last().map_or(0, |&q| q + 1);
             (s, vec![Segment { q0: 0, in0: 0, len }], len, valid)
         } else {
@@ -231,19 +180,10 @@ impl Geometry {
                 .map(|row| {
                     let o = &out_idx[row * last];
                     let in0 = (0..r - 1).map(|d| o[d] * a.strides[d] * ps[d]).sum();
-                    Segment {
-                        q0: row * last,
-                        in0,
-                        len: last,
-                    }
+                    Segment { q0: row * last, in0, len: last }
                 })
                 .collect();
-            (
-                a.strides[r - 1],
-                segments,
-                out_idx.len(),
-                (0..out_idx.len()).collect(),
-            )
+            (a.strides[r - 1], segments, out_idx.len(), (0..out_idx.len()).collect())
         };
         Ok(Geometry {
             input: input.to_vec(),
@@ -271,10 +211,7 @@ impl Geometry {
         let mut out = vec![fill; channels * plen];
         let map = self.interior_offsets();
         for c in 0..channels {
-            let (src, dst) = (
-                &x[c * ilen..(c + 1) * ilen],
-                &mut out[c * plen..(c + 1) * plen],
-            );
+            let (src, dst) = (&x[c * ilen..(c + 1) * ilen], &mut out[c * plen..(c + 1) * plen]);
             for (i, &o) in map.iter().enumerate() {
                 dst[o] = src[i];
             }
@@ -296,14 +233,7 @@ impl Geometry {
     /// Flat padded offset of every unpadded input position (row-major).
     fn interior_offsets(&self) -> Vec<usize> {
         let ps = row_major_strides(&self.padded);
-        indices(&self.input)
-            .iter()
-            .map(|i| {
-                (0..i.len())
-                    .map(|d| (i[d] + self.pad_begin[d]) * ps[d])
-                    .sum()
-            })
-            .collect()
+        indices(&self.input).iter().map(|i| (0..i.len()).map(|d| (i[d] + self.pad_begin[d]) * ps[d]).sum()).collect()
     }
 }
 

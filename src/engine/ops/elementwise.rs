@@ -51,19 +51,13 @@ impl Op for Binary {
             Kind::Sub => (g.clone(), g.mapv(|v| -v)),
             Kind::Mul => {
                 let (av, bv) = (view_as(a, &shape)?, view_as(b, &shape)?);
-                (
-                    Zip::from(g).and(&bv).map_collect(|&g, &b| g * b),
-                    Zip::from(g).and(&av).map_collect(|&g, &a| g * a),
-                )
+                (Zip::from(g).and(&bv).map_collect(|&g, &b| g * b), Zip::from(g).and(&av).map_collect(|&g, &a| g * a))
             }
             Kind::Div => {
                 let bv = view_as(b, &shape)?;
                 (
                     Zip::from(g).and(&bv).map_collect(|&g, &b| g / b),
-                    Zip::from(g)
-                        .and(&bv)
-                        .and(args.output)
-                        .map_collect(|&g, &b, &y| -g * y / b),
+                    Zip::from(g).and(&bv).and(args.output).map_collect(|&g, &b, &y| -g * y / b),
                 )
             }
         };

@@ -25,11 +25,7 @@ impl Op for Flatten {
 
     fn forward(&self, inputs: &[&Tensor]) -> OpResult<Tensor> {
         let x = inputs[0];
-        let axis = if self.axis == x.ndim() as i64 {
-            x.ndim()
-        } else {
-            normalize_axis(self.axis, x.ndim())?
-        };
+        let axis = if self.axis == x.ndim() as i64 { x.ndim() } else { normalize_axis(self.axis, x.ndim())? };
         let outer: usize = x.shape()[..axis].iter().product();
         let inner: usize = x.shape()[axis..].iter().product();
         reshaped(x, &[outer, inner])
@@ -42,12 +38,7 @@ impl Op for Flatten {
 
 /// Build from a node: reads `axis`.
 pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
-    Ok(Built::first(
-        Flatten {
-            axis: ctx.int_or("axis", 1),
-        },
-        1,
-    ))
+    Ok(Built::first(Flatten { axis: ctx.int_or("axis", 1) }, 1))
 }
 
 #[cfg(test)]

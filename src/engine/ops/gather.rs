@@ -28,18 +28,14 @@ impl Op for Gather {
                 usize::try_from(j)
                     .ok()
                     .filter(|&j| (j as i64) < n)
-                    .ok_or_else(|| {
-                        format!("index {i} is out of range for an axis of length {n}").into()
-                    })
+                    .ok_or_else(|| format!("index {i} is out of range for an axis of length {n}").into())
             })
             .collect::<OpResult<_>>()?;
         let taken = data.select(Axis(axis), &picks);
         let mut shape = data.shape()[..axis].to_vec();
         shape.extend(idx.shape());
         shape.extend(&data.shape()[axis + 1..]);
-        Ok(taken
-            .into_shape_with_order(IxDyn(&shape))
-            .map_err(|e| e.to_string())?)
+        Ok(taken.into_shape_with_order(IxDyn(&shape)).map_err(|e| e.to_string())?)
     }
 
     fn backward(&self, _args: &BackwardArgs) -> OpResult<Vec<Option<Tensor>>> {
@@ -49,12 +45,7 @@ impl Op for Gather {
 
 /// Build from a node: reads `axis`.
 pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
-    Ok(Built::first(
-        Gather {
-            axis: ctx.int_or("axis", 0),
-        },
-        2,
-    ))
+    Ok(Built::first(Gather { axis: ctx.int_or("axis", 0) }, 2))
 }
 
 #[cfg(test)]
@@ -63,15 +54,7 @@ mod tests {
 
     #[test]
     fn matches_tract() {
-        check_graph(
-            node_io("Gather", &["x", "i"], &[]),
-            &[&[4, 3]],
-            vec![ints_init("i", &[0, -1])],
-        );
-        check_graph(
-            node_io("Gather", &["x", "i"], &[("axis", Attr::I(1))]),
-            &[&[2, 3]],
-            vec![ints_init("i", &[2])],
-        );
+        check_graph(node_io("Gather", &["x", "i"], &[]), &[&[4, 3]], vec![ints_init("i", &[0, -1])]);
+        check_graph(node_io("Gather", &["x", "i"], &[("axis", Attr::I(1))]), &[&[2, 3]], vec![ints_init("i", &[2])]);
     }
 }

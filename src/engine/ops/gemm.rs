@@ -21,10 +21,7 @@ fn matrix<'a>(t: &'a Tensor, what: &str) -> OpResult<ArrayView2<'a, f32>> {
 }
 
 impl Gemm {
-    fn operands<'a>(
-        &self,
-        inputs: &[&'a Tensor],
-    ) -> OpResult<(ArrayView2<'a, f32>, ArrayView2<'a, f32>)> {
+    fn operands<'a>(&self, inputs: &[&'a Tensor]) -> OpResult<(ArrayView2<'a, f32>, ArrayView2<'a, f32>)> {
         let a = matrix(inputs[0], "A")?;
         let b = matrix(inputs[1], "B")?;
         let a = if self.trans_a { a.reversed_axes() } else { a };
@@ -66,27 +63,16 @@ impl Op for Gemm {
         if args.wants[0] {
             // dA' = alpha * G * B'^T; dA = dA'^T when A was transposed.
             let da = g.dot(&b.t()) * self.alpha;
-            out[0] = Some(
-                if self.trans_a { da.reversed_axes() } else { da }
-                    .as_standard_layout()
-                    .into_owned()
-                    .into_dyn(),
-            );
+            out[0] =
+                Some(if self.trans_a { da.reversed_axes() } else { da }.as_standard_layout().into_owned().into_dyn());
         }
         if args.wants[1] {
             let db = a.t().dot(&g) * self.alpha;
-            out[1] = Some(
-                if self.trans_b { db.reversed_axes() } else { db }
-                    .as_standard_layout()
-                    .into_owned()
-                    .into_dyn(),
-            );
+            out[1] =
+                Some(if self.trans_b { db.reversed_axes() } else { db }.as_standard_layout().into_owned().into_dyn());
         }
         if args.inputs.len() > 2 && args.wants[2] {
-            out[2] = Some(sum_to_shape(
-                &(args.grad * self.beta),
-                args.inputs[2].shape(),
-            ));
+            out[2] = Some(sum_to_shape(&(args.grad * self.beta), args.inputs[2].shape()));
         }
         Ok(out)
     }
@@ -112,14 +98,7 @@ mod tests {
     fn matches_tract_and_finite_differences() {
         check_node(node("Gemm", &[]), &[&[3, 5], &[5, 4], &[4]]);
         check_node(
-            node(
-                "Gemm",
-                &[
-                    ("transB", Attr::I(1)),
-                    ("alpha", Attr::F(0.5)),
-                    ("beta", Attr::F(2.0)),
-                ],
-            ),
+            node("Gemm", &[("transB", Attr::I(1)), ("alpha", Attr::F(0.5)), ("beta", Attr::F(2.0))]),
             &[&[3, 5], &[4, 5], &[1, 4]],
         );
         check_node(node("Gemm", &[("transA", Attr::I(1))]), &[&[5, 3], &[5, 2]]);

@@ -16,16 +16,11 @@ impl Op for GlobalAveragePool {
     fn forward(&self, inputs: &[&Tensor]) -> OpResult<Tensor> {
         let x = inputs[0];
         if x.ndim() < 3 {
-            return Err(
-                format!("input {:?} must have spatial axes after [N, C]", x.shape()).into(),
-            );
+            return Err(format!("input {:?} must have spatial axes after [N, C]", x.shape()).into());
         }
         let mut m = x.clone();
         for a in (2..x.ndim()).rev() {
-            m = m
-                .mean_axis(Axis(a))
-                .ok_or("empty spatial axis")?
-                .insert_axis(Axis(a));
+            m = m.mean_axis(Axis(a)).ok_or("empty spatial axis")?.insert_axis(Axis(a));
         }
         Ok(m)
     }
@@ -33,10 +28,7 @@ impl Op for GlobalAveragePool {
     fn backward(&self, args: &BackwardArgs) -> OpResult<Vec<Option<Tensor>>> {
         let x = args.inputs[0];
         let count: usize = x.shape()[2..].iter().product();
-        let g = args
-            .grad
-            .broadcast(IxDyn(x.shape()))
-            .ok_or("gradient shape")?;
+        let g = args.grad.broadcast(IxDyn(x.shape())).ok_or("gradient shape")?;
         Ok(vec![Some(g.mapv(|v| v / count as f32))])
     }
 }

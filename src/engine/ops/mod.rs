@@ -94,10 +94,7 @@ pub struct Built {
 impl Built {
     /// An op whose data inputs are the first `n` node inputs.
     pub fn first(op: impl Op + 'static, n: usize) -> Self {
-        Built {
-            op: Box::new(op),
-            data_inputs: (0..n).collect(),
-        }
+        Built { op: Box::new(op), data_inputs: (0..n).collect() }
     }
 }
 
@@ -149,19 +146,12 @@ pub const FOLD_ONLY: &[&str] = &["Constant", "Shape", "Gather", "ConstantOfShape
 
 /// Build the op for a node, or `None` when the op_type is not supported.
 pub fn build(ctx: &BuildCtx) -> Option<OpResult<Built>> {
-    REGISTRY
-        .iter()
-        .find(|(name, _)| *name == ctx.op_type())
-        .map(|(_, builder)| builder(ctx))
+    REGISTRY.iter().find(|(name, _)| *name == ctx.op_type()).map(|(_, builder)| builder(ctx))
 }
 
 /// The supported op_types, comma separated, for error messages.
 pub fn supported_list() -> String {
-    REGISTRY
-        .iter()
-        .map(|(n, _)| *n)
-        .collect::<Vec<_>>()
-        .join(", ")
+    REGISTRY.iter().map(|(n, _)| *n).collect::<Vec<_>>().join(", ")
 }
 
 /// Resolve a possibly negative axis against `rank`.
@@ -169,9 +159,7 @@ pub fn normalize_axis(axis: i64, rank: usize) -> OpResult<usize> {
     let r = rank as i64;
     let a = if axis < 0 { axis + r } else { axis };
     if a < 0 || a >= r {
-        return Err(OpError(format!(
-            "axis {axis} is out of range for a tensor of rank {rank}"
-        )));
+        return Err(OpError(format!("axis {axis} is out of range for a tensor of rank {rank}")));
     }
     Ok(a as usize)
 }

@@ -17,12 +17,7 @@ pub struct BatchNorm {
 impl BatchNorm {
     fn check(&self, x: &Tensor) -> OpResult<()> {
         if x.ndim() < 2 || x.shape()[1] != self.gain.len() {
-            return Err(format!(
-                "input {:?} must have {} channels on axis 1",
-                x.shape(),
-                self.gain.len()
-            )
-            .into());
+            return Err(format!("input {:?} must have {} channels on axis 1", x.shape(), self.gain.len()).into());
         }
         Ok(())
     }
@@ -49,9 +44,7 @@ impl Op for BatchNorm {
     }
 
     fn backward(&self, args: &BackwardArgs) -> OpResult<Vec<Option<Tensor>>> {
-        Ok(vec![Some(
-            self.per_channel(args.grad, |g, c| g * self.gain[c]),
-        )])
+        Ok(vec![Some(self.per_channel(args.grad, |g, c| g * self.gain[c]))])
     }
 }
 
@@ -81,10 +74,7 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
             *g = s / (v + eps).sqrt();
             *o = b - m * *g;
         });
-    Ok(Built {
-        op: Box::new(BatchNorm { gain, offset }),
-        data_inputs: vec![0],
-    })
+    Ok(Built { op: Box::new(BatchNorm { gain, offset }), data_inputs: vec![0] })
 }
 
 #[cfg(test)]
@@ -94,23 +84,12 @@ mod tests {
 
     #[test]
     fn matches_tract_and_finite_differences() {
-        let init = |name: &str, seed: u64, positive: bool| {
-            encode_f32(name, &random_tensor(&[3], seed, positive))
-        };
-        let n = node_io(
-            "BatchNormalization",
-            &["x", "s", "b", "m", "v"],
-            &[("epsilon", Attr::F(1e-3))],
-        );
+        let init = |name: &str, seed: u64, positive: bool| encode_f32(name, &random_tensor(&[3], seed, positive));
+        let n = node_io("BatchNormalization", &["x", "s", "b", "m", "v"], &[("epsilon", Attr::F(1e-3))]);
         check_graph(
             n,
             &[&[2, 3, 4, 5]],
-            vec![
-                init("s", 1, false),
-                init("b", 2, false),
-                init("m", 3, false),
-                init("v", 4, true),
-            ],
+            vec![init("s", 1, false), init("b", 2, false), init("m", 3, false), init("v", 4, true)],
         );
     }
 }

@@ -28,22 +28,15 @@ impl Pad {
     fn maps(&self, shape: &[usize]) -> OpResult<Vec<Vec<Option<usize>>>> {
         let r = shape.len();
         let axes: Vec<usize> = match &self.axes {
-            Some(a) => a
-                .iter()
-                .map(|&a| normalize_axis(a, r))
-                .collect::<OpResult<_>>()?,
+            Some(a) => a.iter().map(|&a| normalize_axis(a, r)).collect::<OpResult<_>>()?,
             None => (0..r).collect(),
         };
         if self.pads.len() != 2 * axes.len() {
-            return Err(format!(
-                "pads {:?} must hold two values per padded axis ({} axes)",
-                self.pads,
-                axes.len()
-            )
-            .into());
+            return Err(
+                format!("pads {:?} must hold two values per padded axis ({} axes)", self.pads, axes.len()).into()
+            );
         }
-        let mut maps: Vec<Vec<Option<usize>>> =
-            shape.iter().map(|&n| (0..n).map(Some).collect()).collect();
+        let mut maps: Vec<Vec<Option<usize>>> = shape.iter().map(|&n| (0..n).map(Some).collect()).collect();
         for (i, &a) in axes.iter().enumerate() {
             let n = shape[a] as i64;
             let (b, e) = (self.pads[i], self.pads[axes.len() + i]);
@@ -52,7 +45,9 @@ impl Pad {
                 return Err(format!("pads {:?} crop more than axis {a} holds", self.pads).into());
             }
             if self.mode == Mode::Reflect && (n < 2 || b >= n || e >= n) && (b > 0 || e > 0) {
-                return Err(format!("reflect padding of {b}/{e} needs an axis longer than the pad (axis {a} has {n})").into());
+                return Err(
+                    format!("reflect padding of {b}/{e} needs an axis longer than the pad (axis {a} has {n})").into()
+                );
             }
             maps[a] = (0..len)
                 .map(|o| {
@@ -127,17 +122,9 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
             axes: ctx.constant_ints(3, "axes")?,
         }
     } else {
-        Pad {
-            mode,
-            pads: ctx.ints("pads").ok_or("pads are required")?,
-            value: ctx.float_or("value", 0.0),
-            axes: None,
-        }
+        Pad { mode, pads: ctx.ints("pads").ok_or("pads are required")?, value: ctx.float_or("value", 0.0), axes: None }
     };
-    Ok(Built {
-        op: Box::new(op),
-        data_inputs: vec![0],
-    })
+    Ok(Built { op: Box::new(op), data_inputs: vec![0] })
 }
 
 #[cfg(test)]
@@ -168,14 +155,8 @@ mod tests {
         use super::{Mode, Pad};
         use crate::engine::ops::testing::check_gradients;
         use crate::engine::ops::Op;
-        let x =
-            ndarray::ArrayD::from_shape_fn(ndarray::IxDyn(&[3, 5]), |i| (i[0] * 10 + i[1]) as f32);
-        let op = Pad {
-            mode: Mode::Constant,
-            pads: vec![1, -1, -1, 2],
-            axes: None,
-            value: 9.0,
-        };
+        let x = ndarray::ArrayD::from_shape_fn(ndarray::IxDyn(&[3, 5]), |i| (i[0] * 10 + i[1]) as f32);
+        let op = Pad { mode: Mode::Constant, pads: vec![1, -1, -1, 2], axes: None, value: 9.0 };
         let y = op.forward(&[&x]).unwrap();
         assert_eq!(y.shape(), &[3, 6]);
         let row0: Vec<f32> = y.index_axis(ndarray::Axis(0), 0).iter().copied().collect();

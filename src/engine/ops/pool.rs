@@ -25,19 +25,10 @@ impl Pool {
     fn geometry(&self, x: &ndarray::ArrayViewD<f32>) -> OpResult<(Geometry, usize, usize)> {
         let r = self.attrs.kernel.len();
         if x.ndim() != r + 2 {
-            return Err(format!(
-                "input {:?} must have rank {} for a {r}-D window",
-                x.shape(),
-                r + 2
-            )
-            .into());
+            return Err(format!("input {:?} must have rank {} for a {r}-D window", x.shape(), r + 2).into());
         }
         let geo = Geometry::new(&self.attrs, &x.shape()[2..])?;
-        Ok((
-            geo,
-            x.shape()[0] * x.shape()[1],
-            x.shape()[2..].iter().product(),
-        ))
+        Ok((geo, x.shape()[0] * x.shape()[1], x.shape()[2..].iter().product()))
     }
 
     /// Number of window positions that count for the average at each output position.
@@ -45,16 +36,7 @@ impl Pool {
         let include_pad = matches!(self.kind, Kind::Average { include_pad: true });
         let ones = vec![1f32; geo.input.iter().product()];
         let mask = geo.pad(&ones, 1, if include_pad { 1.0 } else { 0.0 });
-        geo.starts
-            .iter()
-            .map(|&s| {
-                geo.kernel_offsets
-                    .iter()
-                    .map(|&k| mask[s + k])
-                    .sum::<f32>()
-                    .max(1.0)
-            })
-            .collect()
+        geo.starts.iter().map(|&s| geo.kernel_offsets.iter().map(|&k| mask[s + k]).sum::<f32>().max(1.0)).collect()
     }
 
     fn out_shape(&self, x: &ndarray::ArrayViewD<f32>, geo: &Geometry) -> Vec<usize> {
@@ -85,11 +67,7 @@ impl Op for Pool {
                 Kind::Max => {
                     let xp = geo.pad(plane, 1, f32::NEG_INFINITY);
                     for (o, &s) in ys.iter_mut().zip(&geo.starts) {
-                        *o = geo
-                            .kernel_offsets
-                            .iter()
-                            .map(|&k| xp[s + k])
-                            .fold(f32::NEG_INFINITY, f32::max);
+                        *o = geo.kernel_offsets.iter().map(|&k| xp[s + k]).fold(f32::NEG_INFINITY, f32::max);
                     }
                 }
                 Kind::Average { .. } => {
@@ -100,20 +78,14 @@ impl Op for Pool {
                 }
             }
         });
-        Ok(
-            ArrayD::from_shape_vec(IxDyn(&self.out_shape(&x.view(), &geo)), y)
-                .map_err(|e| e.to_string())?,
-        )
+        Ok(ArrayD::from_shape_vec(IxDyn(&self.out_shape(&x.view(), &geo)), y).map_err(|e| e.to_string())?)
     }
 
     fn backward(&self, args: &BackwardArgs) -> OpResult<Vec<Option<Tensor>>> {
         let x = args.inputs[0].as_standard_layout();
         let g = args.grad.as_standard_layout();
         let (geo, planes, ilen) = self.geometry(&x.view())?;
-        let (xs, gs) = (
-            x.as_slice().ok_or("input layout")?,
-            g.as_slice().ok_or("gradient layout")?,
-        );
+        let (xs, gs) = (x.as_slice().ok_or("input layout")?, g.as_slice().ok_or("gradient layout")?);
         let olen = geo.starts.len();
         let div = self.divisors(&geo);
         let mut gx = vec![0f32; planes * ilen];
@@ -150,16 +122,11 @@ impl Op for Pool {
             }
             gxs.copy_from_slice(&geo.unpad(&gp, 1));
         });
-        Ok(vec![Some(
-            ArrayD::from_shape_vec(IxDyn(x.shape()), gx).map_err(|e| e.to_string())?,
-        )])
+        Ok(vec![Some(ArrayD::from_shape_vec(IxDyn(x.shape()), gx).map_err(|e| e.to_string())?)])
     }
 
     fn spatial_footprint(&self) -> Option<Footprint> {
-        Some(Footprint {
-            extent: self.attrs.extent(),
-            stride: self.attrs.strides.clone(),
-        })
+        Some(Footprint { extent: self.attrs.extent(), stride: self.attrs.strides.clone() })
     }
 }
 
@@ -167,13 +134,7 @@ fn build(ctx: &BuildCtx, kind: Kind) -> OpResult<Built> {
     if ctx.node().output.get(1).is_some_and(|s| !s.is_empty()) {
         return Err("the optional Indices output is not supported".into());
     }
-    Ok(Built::first(
-        Pool {
-            kind,
-            attrs: WindowAttrs::read(ctx, None)?,
-        },
-        1,
-    ))
+    Ok(Built::first(Pool { kind, attrs: WindowAttrs::read(ctx, None)? }, 1))
 }
 
 /// Build MaxPool.
@@ -183,12 +144,7 @@ pub fn build_max(ctx: &BuildCtx) -> OpResult<Built> {
 
 /// Build AveragePool.
 pub fn build_average(ctx: &BuildCtx) -> OpResult<Built> {
-    build(
-        ctx,
-        Kind::Average {
-            include_pad: ctx.int_or("count_include_pad", 0) != 0,
-        },
-    )
+    build(ctx, Kind::Average { include_pad: ctx.int_or("count_include_pad", 0) != 0 })
 }
 
 #[cfg(test)]
@@ -197,10 +153,7 @@ mod tests {
 
     #[test]
     fn max_pool_matches_tract_and_finite_differences() {
-        check_node(
-            node("MaxPool", &[("kernel_shape", Attr::Is(vec![2, 2]))]),
-            &[&[2, 3, 6, 5]],
-        );
+        check_node(node("MaxPool", &[("kernel_shape", Attr::Is(vec![2, 2]))]), &[&[2, 3, 6, 5]]);
         check_node(
             node(
                 "MaxPool",
@@ -215,34 +168,18 @@ mod tests {
         check_node(
             node(
                 "MaxPool",
-                &[
-                    ("kernel_shape", Attr::Is(vec![2, 2])),
-                    ("strides", Attr::Is(vec![2, 2])),
-                    ("ceil_mode", Attr::I(1)),
-                ],
+                &[("kernel_shape", Attr::Is(vec![2, 2])), ("strides", Attr::Is(vec![2, 2])), ("ceil_mode", Attr::I(1))],
             ),
             &[&[1, 2, 5, 5]],
         );
-        check_node(
-            node("MaxPool", &[("kernel_shape", Attr::Is(vec![3]))]),
-            &[&[2, 2, 8]],
-        );
+        check_node(node("MaxPool", &[("kernel_shape", Attr::Is(vec![3]))]), &[&[2, 2, 8]]);
     }
 
     #[test]
     fn average_pool_matches_tract_and_finite_differences() {
+        check_node(node("AveragePool", &[("kernel_shape", Attr::Is(vec![2, 3]))]), &[&[2, 3, 6, 5]]);
         check_node(
-            node("AveragePool", &[("kernel_shape", Attr::Is(vec![2, 3]))]),
-            &[&[2, 3, 6, 5]],
-        );
-        check_node(
-            node(
-                "AveragePool",
-                &[
-                    ("kernel_shape", Attr::Is(vec![3, 3])),
-                    ("pads", Attr::Is(vec![1, 1, 1, 1])),
-                ],
-            ),
+            node("AveragePool", &[("kernel_shape", Attr::Is(vec![3, 3])), ("pads", Attr::Is(vec![1, 1, 1, 1]))]),
             &[&[1, 2, 5, 5]],
         );
         check_node(
@@ -257,13 +194,7 @@ mod tests {
             &[&[1, 2, 5, 5]],
         );
         check_node(
-            node(
-                "AveragePool",
-                &[
-                    ("kernel_shape", Attr::Is(vec![2, 2, 2])),
-                    ("strides", Attr::Is(vec![2, 1, 2])),
-                ],
-            ),
+            node("AveragePool", &[("kernel_shape", Attr::Is(vec![2, 2, 2])), ("strides", Attr::Is(vec![2, 1, 2]))]),
             &[&[1, 2, 4, 5, 6]],
         );
     }

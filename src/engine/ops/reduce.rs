@@ -17,10 +17,7 @@ pub struct Reduce {
 impl Reduce {
     fn axes_for(&self, rank: usize) -> OpResult<Vec<usize>> {
         let mut a: Vec<usize> = match &self.axes {
-            Some(a) if !a.is_empty() => a
-                .iter()
-                .map(|&a| normalize_axis(a, rank))
-                .collect::<OpResult<_>>()?,
+            Some(a) if !a.is_empty() => a.iter().map(|&a| normalize_axis(a, rank)).collect::<OpResult<_>>()?,
             _ if self.noop_when_empty => vec![],
             _ => (0..rank).collect(),
         };
@@ -66,40 +63,22 @@ impl Op for Reduce {
                 g = g.insert_axis(Axis(a));
             }
         }
-        let scale = if self.mean && count > 0 {
-            1.0 / count as f32
-        } else {
-            1.0
-        };
-        let g = g
-            .broadcast(IxDyn(x.shape()))
-            .ok_or("gradient shape")?
-            .mapv(|v| v * scale);
+        let scale = if self.mean && count > 0 { 1.0 / count as f32 } else { 1.0 };
+        let g = g.broadcast(IxDyn(x.shape())).ok_or("gradient shape")?.mapv(|v| v * scale);
         Ok(vec![Some(g)])
     }
 }
 
 fn build(ctx: &BuildCtx, mean: bool) -> OpResult<Built> {
-    let axes_are_input = if mean {
-        ctx.opset() >= 18
-    } else {
-        ctx.opset() >= 13
-    };
-    let axes = if axes_are_input {
-        ctx.constant_ints(1, "axes")?
-    } else {
-        ctx.ints("axes")
-    };
+    let axes_are_input = if mean { ctx.opset() >= 18 } else { ctx.opset() >= 13 };
+    let axes = if axes_are_input { ctx.constant_ints(1, "axes")? } else { ctx.ints("axes") };
     let op = Reduce {
         mean,
         axes,
         keep_dims: ctx.int_or("keepdims", 1) != 0,
         noop_when_empty: ctx.int_or("noop_with_empty_axes", 0) != 0,
     };
-    Ok(Built {
-        op: Box::new(op),
-        data_inputs: vec![0],
-    })
+    Ok(Built { op: Box::new(op), data_inputs: vec![0] })
 }
 
 /// Build ReduceMean.
@@ -119,21 +98,13 @@ mod tests {
     #[test]
     fn reduce_sum_and_mean_match_tract_and_finite_differences() {
         for op in ["ReduceSum", "ReduceMean"] {
-            check_graph(
-                node_io(op, &["x", "a"], &[]),
-                &[&[2, 3, 4]],
-                vec![ints_init("a", &[1])],
-            );
+            check_graph(node_io(op, &["x", "a"], &[]), &[&[2, 3, 4]], vec![ints_init("a", &[1])]);
             check_graph(
                 node_io(op, &["x", "a"], &[("keepdims", Attr::I(0))]),
                 &[&[2, 3, 4]],
                 vec![ints_init("a", &[0, -1])],
             );
-            check_graph(
-                node_io(op, &["x"], &[("keepdims", Attr::I(0))]),
-                &[&[2, 3]],
-                vec![],
-            );
+            check_graph(node_io(op, &["x"], &[("keepdims", Attr::I(0))]), &[&[2, 3]], vec![]);
         }
     }
 }

@@ -26,10 +26,7 @@ impl Reshape {
                     out.push(1);
                 }
                 0 if !self.allow_zero => out.push(*shape.get(i).ok_or_else(|| {
-                    format!(
-                        "target {:?} copies dimension {i}, which input {shape:?} lacks",
-                        self.target
-                    )
+                    format!("target {:?} copies dimension {i}, which input {shape:?} lacks", self.target)
                 })?),
                 t if t >= 0 => out.push(t as usize),
                 _ => return Err(format!("invalid target shape {:?}", self.target).into()),
@@ -75,10 +72,7 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
         None => ctx.ints("shape").ok_or("the target shape is missing")?,
     };
     let allow_zero = ctx.int_or("allowzero", 0) != 0;
-    Ok(Built {
-        op: Box::new(Reshape { target, allow_zero }),
-        data_inputs: vec![0],
-    })
+    Ok(Built { op: Box::new(Reshape { target, allow_zero }), data_inputs: vec![0] })
 }
 
 #[cfg(test)]
@@ -88,11 +82,7 @@ mod tests {
     #[test]
     fn matches_tract_and_finite_differences() {
         for target in [vec![0, -1], vec![3, 2, 4], vec![-1, 8], vec![2, 0, 2, 2]] {
-            check_graph(
-                node_io("Reshape", &["x", "s"], &[]),
-                &[&[2, 3, 4]],
-                vec![ints_init("s", &target)],
-            );
+            check_graph(node_io("Reshape", &["x", "s"], &[]), &[&[2, 3, 4]], vec![ints_init("s", &target)]);
         }
     }
 }

@@ -33,13 +33,7 @@ impl Op for Shape {
 
 /// Build from a node: reads `start` and `end`.
 pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
-    Ok(Built::first(
-        Shape {
-            start: ctx.int_or("start", 0),
-            end: ctx.int("end"),
-        },
-        1,
-    ))
+    Ok(Built::first(Shape { start: ctx.int_or("start", 0), end: ctx.int("end") }, 1))
 }
 
 #[cfg(test)]
@@ -49,9 +43,6 @@ mod tests {
     #[test]
     fn matches_tract() {
         check_node(node("Shape", &[]), &[&[2, 3, 4]]);
-        check_node(
-            node("Shape", &[("start", Attr::I(1)), ("end", Attr::I(-1))]),
-            &[&[2, 3, 4, 5]],
-        );
+        check_node(node("Shape", &[("start", Attr::I(1)), ("end", Attr::I(-1))]), &[&[2, 3, 4, 5]]);
     }
 }

@@ -18,18 +18,9 @@ impl Slice {
     /// The (axis, ndarray slice) for each sliced axis of an input of `shape`.
     fn plan(&self, shape: &[usize]) -> OpResult<Vec<(usize, NdSlice)>> {
         let r = shape.len();
-        let axes = self
-            .axes
-            .clone()
-            .unwrap_or_else(|| (0..self.starts.len() as i64).collect());
-        let steps = self
-            .steps
-            .clone()
-            .unwrap_or_else(|| vec![1; self.starts.len()]);
-        if self.ends.len() != self.starts.len()
-            || axes.len() != self.starts.len()
-            || steps.len() != self.starts.len()
-        {
+        let axes = self.axes.clone().unwrap_or_else(|| (0..self.starts.len() as i64).collect());
+        let steps = self.steps.clone().unwrap_or_else(|| vec![1; self.starts.len()]);
+        if self.ends.len() != self.starts.len() || axes.len() != self.starts.len() || steps.len() != self.starts.len() {
             return Err("starts, ends, axes and steps must have the same length".into());
         }
         let mut out = Vec::new();
@@ -51,10 +42,7 @@ impl Slice {
                 (e + 1, s + 1)
             };
             let (lo, hi) = (lo.min(hi), hi);
-            out.push((
-                a,
-                NdSlice::new(lo as isize, Some(hi as isize), step as isize),
-            ));
+            out.push((a, NdSlice::new(lo as isize, Some(hi as isize), step as isize)));
         }
         Ok(out)
     }
@@ -89,9 +77,7 @@ impl Op for Slice {
 pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
     let op = if ctx.opset() >= 10 {
         Slice {
-            starts: ctx
-                .constant_ints(1, "starts")?
-                .ok_or("starts are required")?,
+            starts: ctx.constant_ints(1, "starts")?.ok_or("starts are required")?,
             ends: ctx.constant_ints(2, "ends")?.ok_or("ends are required")?,
             axes: ctx.constant_ints(3, "axes")?,
             steps: ctx.constant_ints(4, "steps")?,
@@ -104,10 +90,7 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
             steps: None,
         }
     };
-    Ok(Built {
-        op: Box::new(op),
-        data_inputs: vec![0],
-    })
+    Ok(Built { op: Box::new(op), data_inputs: vec![0] })
 }
 
 #[cfg(test)]
@@ -118,12 +101,7 @@ mod tests {
         check_graph(
             node_io("Slice", &["x", "s", "e", "a", "t"], &[]),
             &[&[4, 6, 5]],
-            vec![
-                ints_init("s", starts),
-                ints_init("e", ends),
-                ints_init("a", axes),
-                ints_init("t", steps),
-            ],
+            vec![ints_init("s", starts), ints_init("e", ends), ints_init("a", axes), ints_init("t", steps)],
         );
     }
 

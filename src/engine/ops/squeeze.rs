@@ -27,20 +27,12 @@ impl Op for Squeeze {
         let drop: Vec<usize> = if self.axes.is_empty() {
             (0..shape.len()).filter(|&a| shape[a] == 1).collect()
         } else {
-            self.axes
-                .iter()
-                .map(|&a| normalize_axis(a, shape.len()))
-                .collect::<OpResult<_>>()?
+            self.axes.iter().map(|&a| normalize_axis(a, shape.len())).collect::<OpResult<_>>()?
         };
         if let Some(&a) = drop.iter().find(|&&a| shape[a] != 1) {
-            return Err(
-                format!("cannot squeeze axis {a} of shape {shape:?}: its size is not 1").into(),
-            );
+            return Err(format!("cannot squeeze axis {a} of shape {shape:?}: its size is not 1").into());
         }
-        let out: Vec<usize> = (0..shape.len())
-            .filter(|a| !drop.contains(a))
-            .map(|a| shape[a])
-            .collect();
+        let out: Vec<usize> = (0..shape.len()).filter(|a| !drop.contains(a)).map(|a| shape[a]).collect();
         reshaped(inputs[0], &out)
     }
 
@@ -57,11 +49,7 @@ impl Op for Unsqueeze {
     fn forward(&self, inputs: &[&Tensor]) -> OpResult<Tensor> {
         let shape = inputs[0].shape();
         let rank = shape.len() + self.axes.len();
-        let mut at: Vec<usize> = self
-            .axes
-            .iter()
-            .map(|&a| normalize_axis(a, rank))
-            .collect::<OpResult<_>>()?;
+        let mut at: Vec<usize> = self.axes.iter().map(|&a| normalize_axis(a, rank)).collect::<OpResult<_>>()?;
         at.sort_unstable();
         let mut out = Vec::with_capacity(rank);
         let mut src = shape.iter();
@@ -90,21 +78,13 @@ fn axes(ctx: &BuildCtx) -> OpResult<Option<Vec<i64>>> {
 
 /// Build Squeeze.
 pub fn build_squeeze(ctx: &BuildCtx) -> OpResult<Built> {
-    Ok(Built {
-        op: Box::new(Squeeze {
-            axes: axes(ctx)?.unwrap_or_default(),
-        }),
-        data_inputs: vec![0],
-    })
+    Ok(Built { op: Box::new(Squeeze { axes: axes(ctx)?.unwrap_or_default() }), data_inputs: vec![0] })
 }
 
 /// Build Unsqueeze (axes are required).
 pub fn build_unsqueeze(ctx: &BuildCtx) -> OpResult<Built> {
     let axes = axes(ctx)?.ok_or("axes are required")?;
-    Ok(Built {
-        op: Box::new(Unsqueeze { axes }),
-        data_inputs: vec![0],
-    })
+    Ok(Built { op: Box::new(Unsqueeze { axes }), data_inputs: vec![0] })
 }
 
 #[cfg(test)]
@@ -113,25 +93,13 @@ mod tests {
 
     #[test]
     fn squeeze_matches_tract_and_finite_differences() {
-        check_graph(
-            node_io("Squeeze", &["x", "a"], &[]),
-            &[&[2, 1, 3, 1]],
-            vec![ints_init("a", &[1, -1])],
-        );
+        check_graph(node_io("Squeeze", &["x", "a"], &[]), &[&[2, 1, 3, 1]], vec![ints_init("a", &[1, -1])]);
         check_graph(node_io("Squeeze", &["x"], &[]), &[&[1, 3, 1]], vec![]);
     }
 
     #[test]
     fn unsqueeze_matches_tract_and_finite_differences() {
-        check_graph(
-            node_io("Unsqueeze", &["x", "a"], &[]),
-            &[&[2, 3]],
-            vec![ints_init("a", &[0, 3])],
-        );
-        check_graph(
-            node_io("Unsqueeze", &["x", "a"], &[]),
-            &[&[2, 3]],
-            vec![ints_init("a", &[-1])],
-        );
+        check_graph(node_io("Unsqueeze", &["x", "a"], &[]), &[&[2, 3]], vec![ints_init("a", &[0, 3])]);
+        check_graph(node_io("Unsqueeze", &["x", "a"], &[]), &[&[2, 3]], vec![ints_init("a", &[-1])]);
     }
 }

@@ -43,10 +43,7 @@ pub fn node_io(op: &str, inputs: &[&str], attrs: &[(&str, Attr)]) -> NodeProto {
 
 fn attribute(name: &str, a: &Attr) -> AttributeProto {
     use pb::attribute_proto::AttributeType as T;
-    let mut p = AttributeProto {
-        name: name.into(),
-        ..Default::default()
-    };
+    let mut p = AttributeProto { name: name.into(), ..Default::default() };
     match a {
         Attr::I(i) => {
             p.i = *i;
@@ -137,11 +134,7 @@ pub fn check_graph(n: NodeProto, shapes: &[&[usize]], inits: Vec<TensorProto>) {
 }
 
 fn run_case(n: NodeProto, shapes: &[&[usize]], inits: Vec<TensorProto>, positive: bool) {
-    let data: Vec<Tensor> = shapes
-        .iter()
-        .enumerate()
-        .map(|(i, s)| random_tensor(s, 17 + i as u64, positive))
-        .collect();
+    let data: Vec<Tensor> = shapes.iter().enumerate().map(|(i, s)| random_tensor(s, 17 + i as u64, positive)).collect();
     let expected = tract_forward(&n, &data, &inits);
 
     let mut values: HashMap<String, Tensor> = HashMap::new();
@@ -150,12 +143,7 @@ fn run_case(n: NodeProto, shapes: &[&[usize]], inits: Vec<TensorProto>, positive
     }
     let constants: HashMap<String, Tensor> = inits
         .iter()
-        .map(|t| {
-            (
-                t.name.clone(),
-                crate::model::tensor_proto::decode(t).expect("test initializer"),
-            )
-        })
+        .map(|t| (t.name.clone(), crate::model::tensor_proto::decode(t).expect("test initializer")))
         .collect();
     for (k, v) in &constants {
         values.insert(k.clone(), v.clone());
@@ -163,26 +151,14 @@ fn run_case(n: NodeProto, shapes: &[&[usize]], inits: Vec<TensorProto>, positive
     let lookup = |name: &str| constants.get(name);
     let ctx = BuildCtx::new(&n, 18, &lookup);
     let Built { op, data_inputs } = build(&ctx).expect("op is registered").expect("op builds");
-    let inputs: Vec<Tensor> = data_inputs
-        .iter()
-        .map(|&i| values[&n.input[i]].clone())
-        .collect();
+    let inputs: Vec<Tensor> = data_inputs.iter().map(|&i| values[&n.input[i]].clone()).collect();
     let refs: Vec<&Tensor> = inputs.iter().collect();
     let out = op.forward(&refs).expect("forward runs");
 
-    assert_eq!(
-        out.shape(),
-        expected.shape(),
-        "{}: output shape differs from tract",
-        n.op_type
-    );
+    assert_eq!(out.shape(), expected.shape(), "{}: output shape differs from tract", n.op_type);
     for (a, b) in out.iter().zip(expected.iter()) {
         let tol = 1e-5 * (1.0 + b.abs());
-        assert!(
-            (a - b).abs() <= tol,
-            "{}: forward {a} vs tract {b}",
-            n.op_type
-        );
+        assert!((a - b).abs() <= tol, "{}: forward {a} vs tract {b}", n.op_type);
     }
 
     if super::FOLD_ONLY.contains(&n.op_type.as_str()) {
@@ -196,41 +172,20 @@ pub fn check_gradients(op: &dyn super::Op, inputs: &[Tensor], out: &Tensor) {
     let w = random_tensor(out.shape(), 99, false);
     let wants = vec![true; inputs.len()];
     let refs: Vec<&Tensor> = inputs.iter().collect();
-    let grads = op
-        .backward(&BackwardArgs {
-            inputs: &refs,
-            output: out,
-            grad: &w,
-            wants: &wants,
-        })
-        .expect("backward runs");
+    let grads =
+        op.backward(&BackwardArgs { inputs: &refs, output: out, grad: &w, wants: &wants }).expect("backward runs");
     let objective = |xs: &[Tensor]| -> f64 {
         let r: Vec<&Tensor> = xs.iter().collect();
         let y = op.forward(&r).expect("forward runs");
-        y.iter()
-            .zip(w.iter())
-            .map(|(a, b)| *a as f64 * *b as f64)
-            .sum()
+        y.iter().zip(w.iter()).map(|(a, b)| *a as f64 * *b as f64).sum()
     };
     let eps = 2e-3f32;
     // Rounding noise of the f32 forward, carried into the difference quotient.
-    let magnitude: f64 = out
-        .iter()
-        .zip(w.iter())
-        .map(|(y, w)| (*y as f64 * *w as f64).powi(2))
-        .sum::<f64>()
-        .sqrt();
+    let magnitude: f64 = out.iter().zip(w.iter()).map(|(y, w)| (*y as f64 * *w as f64).powi(2)).sum::<f64>().sqrt();
     let noise = 5e-7 * magnitude / (2.0 * eps as f64);
     for (i, g) in grads.iter().enumerate() {
-        let g = g
-            .as_ref()
-            .unwrap_or_else(|| panic!("{}: no gradient for input {i}", op.name()));
-        assert_eq!(
-            g.shape(),
-            inputs[i].shape(),
-            "{}: gradient shape of input {i}",
-            op.name()
-        );
+        let g = g.as_ref().unwrap_or_else(|| panic!("{}: no gradient for input {i}", op.name()));
+        assert_eq!(g.shape(), inputs[i].shape(), "{}: gradient shape of input {i}", op.name());
         let n = inputs[i].len();
         let step = (n / 40).max(1);
         for j in (0..n).step_by(step) {
@@ -259,19 +214,13 @@ fn value_info(name: &str, shape: Option<&[usize]>) -> pb::ValueInfoProto {
         shape: shape.map(|s| pb::TensorShapeProto {
             dim: s
                 .iter()
-                .map(|&d| Dimension {
-                    value: Some(Value::DimValue(d as i64)),
-                    ..Default::default()
-                })
+                .map(|&d| Dimension { value: Some(Value::DimValue(d as i64)), ..Default::default() })
                 .collect(),
         }),
     };
     pb::ValueInfoProto {
         name: name.into(),
-        r#type: Some(pb::TypeProto {
-            value: Some(pb::type_proto::Value::TensorType(tensor)),
-            ..Default::default()
-        }),
+        r#type: Some(pb::TypeProto { value: Some(pb::type_proto::Value::TensorType(tensor)), ..Default::default() }),
         ..Default::default()
     }
 }
@@ -282,21 +231,13 @@ pub fn tract_forward(n: &NodeProto, data: &[Tensor], inits: &[TensorProto]) -> T
         node: vec![n.clone()],
         name: "test".into(),
         initializer: inits.to_vec(),
-        input: n
-            .input
-            .iter()
-            .zip(data)
-            .map(|(name, t)| value_info(name, Some(t.shape())))
-            .collect(),
+        input: n.input.iter().zip(data).map(|(name, t)| value_info(name, Some(t.shape()))).collect(),
         output: vec![value_info("y", None)],
         ..Default::default()
     };
     let model = pb::ModelProto {
         ir_version: 8,
-        opset_import: vec![pb::OperatorSetIdProto {
-            domain: String::new(),
-            version: 18,
-        }],
+        opset_import: vec![pb::OperatorSetIdProto { domain: String::new(), version: 18 }],
         graph: Some(graph),
         ..Default::default()
     };
@@ -305,15 +246,8 @@ pub fn tract_forward(n: &NodeProto, data: &[Tensor], inits: &[TensorProto]) -> T
         .and_then(|m| m.into_optimized())
         .and_then(|m| m.into_runnable())
         .unwrap_or_else(|e| panic!("tract cannot run {}: {e:?}", n.op_type));
-    let inputs: TVec<TValue> = data
-        .iter()
-        .map(|t| tract_ndarray::ArrayD::clone(t).into_tvalue())
-        .collect();
-    let out = plan
-        .run(inputs)
-        .unwrap_or_else(|e| panic!("tract fails on {}: {e:?}", n.op_type));
+    let inputs: TVec<TValue> = data.iter().map(|t| tract_ndarray::ArrayD::clone(t).into_tvalue()).collect();
+    let out = plan.run(inputs).unwrap_or_else(|e| panic!("tract fails on {}: {e:?}", n.op_type));
     let t = out[0].cast_to::<f32>().expect("numeric output");
-    t.to_plain_array_view::<f32>()
-        .expect("f32 output")
-        .to_owned()
+    t.to_plain_array_view::<f32>().expect("f32 output").to_owned()
 }

@@ -12,15 +12,9 @@ pub struct Transpose {
 
 impl Transpose {
     fn perm_for(&self, rank: usize) -> OpResult<Vec<usize>> {
-        let p = self
-            .perm
-            .clone()
-            .unwrap_or_else(|| (0..rank).rev().collect());
+        let p = self.perm.clone().unwrap_or_else(|| (0..rank).rev().collect());
         let mut seen = vec![false; rank];
-        if p.len() != rank
-            || p.iter()
-                .any(|&a| a >= rank || std::mem::replace(&mut seen[a], true))
-        {
+        if p.len() != rank || p.iter().any(|&a| a >= rank || std::mem::replace(&mut seen[a], true)) {
             return Err(format!("perm {p:?} is not a permutation of {rank} axes").into());
         }
         Ok(p)
@@ -34,11 +28,7 @@ impl Op for Transpose {
 
     fn forward(&self, inputs: &[&Tensor]) -> OpResult<Tensor> {
         let p = self.perm_for(inputs[0].ndim())?;
-        Ok(inputs[0]
-            .view()
-            .permuted_axes(p)
-            .as_standard_layout()
-            .into_owned())
+        Ok(inputs[0].view().permuted_axes(p).as_standard_layout().into_owned())
     }
 
     fn backward(&self, args: &BackwardArgs) -> OpResult<Vec<Option<Tensor>>> {
@@ -47,24 +37,13 @@ impl Op for Transpose {
         for (i, &a) in p.iter().enumerate() {
             inverse[a] = i;
         }
-        Ok(vec![Some(
-            args.grad
-                .view()
-                .permuted_axes(inverse)
-                .as_standard_layout()
-                .into_owned(),
-        )])
+        Ok(vec![Some(args.grad.view().permuted_axes(inverse).as_standard_layout().into_owned())])
     }
 }
 
 /// Build from a node: reads `perm`.
 pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
-    Ok(Built::first(
-        Transpose {
-            perm: ctx.usizes("perm")?,
-        },
-        1,
-    ))
+    Ok(Built::first(Transpose { perm: ctx.usizes("perm")? }, 1))
 }
 
 #[cfg(test)]
@@ -73,10 +52,7 @@ mod tests {
 
     #[test]
     fn matches_tract_and_finite_differences() {
-        check_node(
-            node("Transpose", &[("perm", Attr::Is(vec![0, 3, 1, 2]))]),
-            &[&[2, 3, 4, 5]],
-        );
+        check_node(node("Transpose", &[("perm", Attr::Is(vec![0, 3, 1, 2]))]), &[&[2, 3, 4, 5]]);
         check_node(node("Transpose", &[]), &[&[2, 3, 4]]);
     }
 }

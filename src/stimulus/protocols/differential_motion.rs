@@ -62,22 +62,17 @@ impl Protocol for DifferentialMotion {
     fn draw(&self, p: &Params, c: &Canvas, seed: u64) -> Result<Drawn> {
         let (interval, trial) = (c.frames(p.num("interval_ms")), c.frames(p.num("trial_ms")));
         if interval == 0 || trial < 2 * interval {
-            return Err(Error::Usage("differential-motion: interval_ms must last a frame and trial_ms at least two intervals".into()));
+            return Err(Error::Usage(
+                "differential-motion: interval_ms must last a frame and trial_ms at least two intervals".into(),
+            ));
         }
-        let (period, step, contrast) = (
-            c.px(p.num("period_um")),
-            c.px(p.num("step_um")),
-            p.num("contrast") as f32,
-        );
+        let (period, step, contrast) = (c.px(p.num("period_um")), c.px(p.num("step_um")), p.num("contrast") as f32);
         let radius = c.px(p.num("centre_um")) / 2.0;
         let (cy, cx) = (c.height as f64 / 2.0, c.width as f64 / 2.0);
         let inside: Vec<Vec<bool>> = (0..c.height)
             .map(|y| {
                 (0..c.width)
-                    .map(|x| {
-                        ((y as f64 + 0.5 - cy).powi(2) + (x as f64 + 0.5 - cx).powi(2)).sqrt()
-                            < radius
-                    })
+                    .map(|x| ((y as f64 + 0.5 - cy).powi(2) + (x as f64 + 0.5 - cx).powi(2)).sqrt() < radius)
                     .collect()
             })
             .collect();
@@ -88,28 +83,11 @@ impl Protocol for DifferentialMotion {
         for k in 0..2 * trials {
             let differential = k % 2 == 1;
             let centre = random_walk(&mut rng, trial, interval, step);
-            let surround = if differential {
-                random_walk(&mut rng, trial, interval, step)
-            } else {
-                centre.clone()
-            };
+            let surround = if differential { random_walk(&mut rng, trial, interval, step) } else { centre.clone() };
             let start = k * trial;
-            let cond = if differential {
-                "differential"
-            } else {
-                "global"
-            };
-            events.push(Event {
-                name: format!("{cond}_start"),
-                frame: start,
-                condition: Some(cond.into()),
-            });
-            windows.push(Window {
-                name: cond.into(),
-                start,
-                end: start + trial,
-                condition: Some(cond.into()),
-            });
+            let cond = if differential { "differential" } else { "global" };
+            events.push(Event { name: format!("{cond}_start"), frame: start, condition: Some(cond.into()) });
+            windows.push(Window { name: cond.into(), start, end: start + trial, condition: Some(cond.into()) });
             for t in 0..trial {
                 let mut f = movie.index_axis_mut(ndarray::Axis(0), start + t);
                 for ((y, x), v) in f.indexed_iter_mut() {
@@ -118,20 +96,13 @@ impl Protocol for DifferentialMotion {
                 }
             }
         }
-        Ok(Drawn {
-            movie,
-            events,
-            windows,
-        })
+        Ok(Drawn { movie, events, windows })
     }
 
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let avg = |name: &str, cell: usize| {
             let ws: Vec<_> = obs.meta.windows_named(name).collect();
-            ws.iter()
-                .map(|w| mean(&obs.rates, cell, w.start, w.end))
-                .sum::<f64>()
-                / ws.len() as f64
+            ws.iter().map(|w| mean(&obs.rates, cell, w.start, w.end)).sum::<f64>() / ws.len() as f64
         };
         let cells: Vec<_> = (0..obs.rates.ncols())
             .map(|c| {
@@ -139,10 +110,7 @@ impl Protocol for DifferentialMotion {
                 json!({"cell": c, "differential_mean": json(d), "global_mean": json(g), "object_motion_index": json(index(d, g))})
             })
             .collect();
-        Ok(Measured {
-            summary: json!({ "cells": cells }),
-            arrays: vec![],
-        })
+        Ok(Measured { summary: json!({ "cells": cells }), arrays: vec![] })
     }
 }
 
@@ -151,13 +119,7 @@ mod tests {
     use super::*;
 
     fn canvas() -> Canvas {
-        Canvas {
-            height: 20,
-            width: 20,
-            lags: 2,
-            frame_rate_hz: 100.0,
-            pixel_um: 25.0,
-        }
+        Canvas { height: 20, width: 20, lags: 2, frame_rate_hz: 100.0, pixel_um: 25.0 }
     }
 
     /// True when one grating offset explains every pixel of the frame (centre and surround
@@ -165,20 +127,12 @@ mod tests {
     fn one_offset_fits(frame: ndarray::ArrayView2<f32>, period: f64) -> bool {
         (0..(period * 4.0) as usize)
             .map(|k| k as f64 * 0.25)
-            .any(|s| {
-                frame
-                    .indexed_iter()
-                    .all(|((_, x), &v)| grating(x, period, s, 1.0) == v)
-            })
+            .any(|s| frame.indexed_iter().all(|((_, x), &v)| grating(x, period, s, 1.0) == v))
     }
 
     #[test]
     fn global_jitter_moves_centre_and_surround_identically() {
-        let args = [
-            "trials=2".into(),
-            "trial_ms=600".into(),
-            "step_um=25".into(),
-        ];
+        let args = ["trials=2".into(), "trial_ms=600".into(), "step_um=25".into()];
         let p = Params::parse("differential-motion", DifferentialMotion.specs(), &args).unwrap();
         let d = DifferentialMotion.draw(&p, &canvas(), 3).unwrap();
         let mut differential_seams = 0;
@@ -192,10 +146,7 @@ mod tests {
                 }
             }
         }
-        assert!(
-            differential_seams > 0,
-            "differential trials must shift the centre against the surround"
-        );
+        assert!(differential_seams > 0, "differential trials must shift the centre against the surround");
     }
 
     #[test]
@@ -224,13 +175,7 @@ mod tests {
         let mut rates = ndarray::Array2::<f32>::from_elem((s.meta.frames, 1), 1.0);
         let w = s.meta.windows_named("differential").next().unwrap();
         rates.slice_mut(ndarray::s![w.start..w.end, ..]).fill(3.0);
-        let obs = Observed {
-            meta: &s.meta,
-            movie: &s.movie,
-            rates: rates.view(),
-            lags: 2,
-            rf_centres: &[(0.0, 0.0)],
-        };
+        let obs = Observed { meta: &s.meta, movie: &s.movie, rates: rates.view(), lags: 2, rf_centres: &[(0.0, 0.0)] };
         let m = DifferentialMotion.measure(&obs).unwrap().summary;
         assert_eq!(m["cells"][0]["object_motion_index"], 0.5);
     }

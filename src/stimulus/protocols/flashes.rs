@@ -22,15 +22,7 @@ impl Protocol for Flashes {
 
     fn specs(&self) -> Vec<Spec> {
         vec![
-            Spec::num(
-                "flash_ms",
-                "ms",
-                100.0,
-                1.0,
-                60000.0,
-                "common practice",
-                "flash duration",
-            ),
+            Spec::num("flash_ms", "ms", 100.0, 1.0, 60000.0, "common practice", "flash duration"),
             Spec::num(
                 "interval_ms",
                 "ms",
@@ -62,11 +54,8 @@ impl Protocol for Flashes {
     }
 
     fn draw(&self, p: &Params, c: &Canvas, _seed: u64) -> Result<Drawn> {
-        let (flash, interval, rest) = (
-            c.frames(p.num("flash_ms")),
-            c.frames(p.num("interval_ms")),
-            c.frames(p.num("rest_ms")),
-        );
+        let (flash, interval, rest) =
+            (c.frames(p.num("flash_ms")), c.frames(p.num("interval_ms")), c.frames(p.num("rest_ms")));
         if flash == 0 || flash >= interval || rest == 0 {
             return Err(Error::Usage(format!(
                 "flashes: the flash ({flash} frames) must last at least a frame and be shorter than the interval ({interval} frames); rest_ms must last a frame"
@@ -75,24 +64,13 @@ impl Protocol for Flashes {
         let contrasts = p.list("contrasts");
         let mut movie = c.blank(rest + 2 * contrasts.len() * interval);
         let mut events = Vec::new();
-        let mut windows = vec![Window {
-            name: "baseline".into(),
-            start: rest / 2,
-            end: rest,
-            condition: None,
-        }];
+        let mut windows = vec![Window { name: "baseline".into(), start: rest / 2, end: rest, condition: None }];
         let mut onset = rest;
         for &k in &contrasts {
             for (name, sign) in [("on", 1.0f32), ("off", -1.0f32)] {
                 let cond = Some(format!("{name} contrast={k}"));
-                movie
-                    .slice_mut(ndarray::s![onset..onset + flash, .., ..])
-                    .fill(sign * k as f32);
-                events.push(Event {
-                    name: format!("{name}_flash"),
-                    frame: onset,
-                    condition: cond.clone(),
-                });
+                movie.slice_mut(ndarray::s![onset..onset + flash, .., ..]).fill(sign * k as f32);
+                events.push(Event { name: format!("{name}_flash"), frame: onset, condition: cond.clone() });
                 windows.push(Window {
                     name: format!("{name}_response"),
                     start: onset,
@@ -102,11 +80,7 @@ impl Protocol for Flashes {
                 onset += interval;
             }
         }
-        Ok(Drawn {
-            movie,
-            events,
-            windows,
-        })
+        Ok(Drawn { movie, events, windows })
     }
 
     fn measure(&self, obs: &Observed) -> Result<Measured> {
@@ -137,10 +111,7 @@ impl Protocol for Flashes {
                 json!({"cell": c, "baseline": json(base), "polarity_index": json(index(best_on, best_off)), "flashes": rows})
             })
             .collect();
-        Ok(Measured {
-            summary: json!({ "cells": cells }),
-            arrays: vec![],
-        })
+        Ok(Measured { summary: json!({ "cells": cells }), arrays: vec![] })
     }
 }
 
@@ -151,28 +122,14 @@ mod tests {
 
     #[test]
     fn polarity_and_latency_on_a_synthetic_on_cell() {
-        let c = Canvas {
-            height: 3,
-            width: 3,
-            lags: 4,
-            frame_rate_hz: 100.0,
-            pixel_um: 50.0,
-        };
+        let c = Canvas { height: 3, width: 3, lags: 4, frame_rate_hz: 100.0, pixel_um: 50.0 };
         let p = Params::parse("flashes", Flashes.specs(), &[]).unwrap();
         let d = Flashes.draw(&p, &c, 0).unwrap();
         let s = Stimulus::assemble("flashes", &p, &c, 0, d);
         // Mean luminance and contrast are as set.
         let e = s.meta.events_named("on_flash").last().unwrap();
-        assert!(s
-            .movie
-            .index_axis(ndarray::Axis(0), e.frame)
-            .iter()
-            .all(|&v| v == 1.0));
-        assert!(s
-            .movie
-            .index_axis(ndarray::Axis(0), e.frame - 1)
-            .iter()
-            .all(|&v| v == 0.0));
+        assert!(s.movie.index_axis(ndarray::Axis(0), e.frame).iter().all(|&v| v == 1.0));
+        assert!(s.movie.index_axis(ndarray::Axis(0), e.frame - 1).iter().all(|&v| v == 0.0));
         // An ON cell: +4 above a baseline of 1, 30 ms after ON onsets; +1 after OFF onsets.
         let mut rates = ndarray::Array2::<f32>::from_elem((s.meta.frames, 1), 1.0);
         for e in s.meta.events_named("on_flash") {
@@ -181,13 +138,7 @@ mod tests {
         for e in s.meta.events_named("off_flash") {
             rates[[e.frame + 3, 0]] = 2.0;
         }
-        let obs = Observed {
-            meta: &s.meta,
-            movie: &s.movie,
-            rates: rates.view(),
-            lags: 4,
-            rf_centres: &[(1.0, 1.0)],
-        };
+        let obs = Observed { meta: &s.meta, movie: &s.movie, rates: rates.view(), lags: 4, rf_centres: &[(1.0, 1.0)] };
         let m = Flashes.measure(&obs).unwrap().summary;
         assert!((m["cells"][0]["polarity_index"].as_f64().unwrap() - 0.6).abs() < 1e-9);
         assert_eq!(m["cells"][0]["flashes"][0]["latency_ms"], 30.0);
@@ -195,19 +146,8 @@ mod tests {
 
     #[test]
     fn a_flash_longer_than_its_interval_is_refused() {
-        let c = Canvas {
-            height: 3,
-            width: 3,
-            lags: 4,
-            frame_rate_hz: 100.0,
-            pixel_um: 50.0,
-        };
-        let p = Params::parse(
-            "flashes",
-            Flashes.specs(),
-            &["flash_ms=900".into(), "interval_ms=500".into()],
-        )
-        .unwrap();
+        let c = Canvas { height: 3, width: 3, lags: 4, frame_rate_hz: 100.0, pixel_um: 50.0 };
+        let p = Params::parse("flashes", Flashes.specs(), &["flash_ms=900".into(), "interval_ms=500".into()]).unwrap();
         assert!(Flashes.draw(&p, &c, 0).is_err());
     }
 }

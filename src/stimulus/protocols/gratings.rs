@@ -41,33 +41,9 @@ impl Protocol for Gratings {
                 "common practice",
                 "drift (temporal) frequencies",
             ),
-            Spec::num(
-                "duration_ms",
-                "ms",
-                2000.0,
-                10.0,
-                600000.0,
-                "common practice",
-                "duration of each condition",
-            ),
-            Spec::num(
-                "gap_ms",
-                "ms",
-                500.0,
-                0.0,
-                600000.0,
-                "common practice",
-                "gray between conditions",
-            ),
-            Spec::num(
-                "contrast",
-                "Michelson",
-                1.0,
-                0.0,
-                1.0,
-                "common practice",
-                "grating contrast",
-            ),
+            Spec::num("duration_ms", "ms", 2000.0, 10.0, 600000.0, "common practice", "duration of each condition"),
+            Spec::num("gap_ms", "ms", 500.0, 0.0, 600000.0, "common practice", "gray between conditions"),
+            Spec::num("contrast", "Michelson", 1.0, 0.0, 1.0, "common practice", "grating contrast"),
             Spec::num(
                 "direction_deg",
                 "deg",
@@ -83,9 +59,7 @@ impl Protocol for Gratings {
     fn draw(&self, p: &Params, c: &Canvas, _seed: u64) -> Result<Drawn> {
         let (dur, gap) = (c.frames(p.num("duration_ms")), c.frames(p.num("gap_ms")));
         if dur == 0 {
-            return Err(Error::Usage(
-                "gratings: duration_ms must last at least one frame".into(),
-            ));
+            return Err(Error::Usage("gratings: duration_ms must last at least one frame".into()));
         }
         let (sfs, tfs) = (p.list("spatial_cpmm"), p.list("temporal_hz"));
         let nyquist = c.frame_rate_hz / 2.0;
@@ -104,23 +78,11 @@ impl Protocol for Gratings {
             let k = 2.0 * PI * sf * c.pixel_um / 1000.0; // radians per pixel
             for &tf in &tfs {
                 let cond = Some(format!("spatial_cpmm={sf} temporal_hz={tf}"));
-                events.push(Event {
-                    name: "grating_start".into(),
-                    frame: t0,
-                    condition: cond.clone(),
-                });
-                windows.push(Window {
-                    name: "grating".into(),
-                    start: t0,
-                    end: t0 + dur,
-                    condition: cond,
-                });
+                events.push(Event { name: "grating_start".into(), frame: t0, condition: cond.clone() });
+                windows.push(Window { name: "grating".into(), start: t0, end: t0 + dur, condition: cond });
                 for t in 0..dur {
                     let phase = 2.0 * PI * tf * t as f64 / c.frame_rate_hz;
-                    for ((y, x), v) in movie
-                        .index_axis_mut(ndarray::Axis(0), t0 + t)
-                        .indexed_iter_mut()
-                    {
+                    for ((y, x), v) in movie.index_axis_mut(ndarray::Axis(0), t0 + t).indexed_iter_mut() {
                         let along = (x as f64 + 0.5) * theta.cos() - (y as f64 + 0.5) * theta.sin();
                         *v = (contrast * (k * along - phase).cos()) as f32;
                     }
@@ -128,11 +90,7 @@ impl Protocol for Gratings {
                 t0 += dur + gap;
             }
         }
-        Ok(Drawn {
-            movie,
-            events,
-            windows,
-        })
+        Ok(Drawn { movie, events, windows })
     }
 
     fn measure(&self, obs: &Observed) -> Result<Measured> {
@@ -157,10 +115,7 @@ impl Protocol for Gratings {
                 json!({"cell": c, "conditions": rows})
             })
             .collect();
-        Ok(Measured {
-            summary: json!({ "cells": cells }),
-            arrays: vec![],
-        })
+        Ok(Measured { summary: json!({ "cells": cells }), arrays: vec![] })
     }
 }
 
@@ -171,59 +126,29 @@ mod tests {
 
     #[test]
     fn f1_amplitude_and_mean_of_a_synthetic_modulated_cell() {
-        let c = Canvas {
-            height: 4,
-            width: 4,
-            lags: 2,
-            frame_rate_hz: 100.0,
-            pixel_um: 50.0,
-        };
-        let p = Params::parse(
-            "gratings",
-            Gratings.specs(),
-            &["spatial_cpmm=2".into(), "temporal_hz=2,5".into()],
-        )
-        .unwrap();
+        let c = Canvas { height: 4, width: 4, lags: 2, frame_rate_hz: 100.0, pixel_um: 50.0 };
+        let p =
+            Params::parse("gratings", Gratings.specs(), &["spatial_cpmm=2".into(), "temporal_hz=2,5".into()]).unwrap();
         let s = Stimulus::assemble("gratings", &p, &c, 0, Gratings.draw(&p, &c, 0).unwrap());
         // The movie is a drifting cosine: mean 0 and contrast 1 over a whole cycle.
         let w = s.meta.windows_named("grating").next().unwrap();
-        let px: Vec<f32> = (w.start..w.start + 50)
-            .map(|t| s.movie[[t, 0, 0]])
-            .collect();
-        assert!(
-            px.iter().sum::<f32>().abs() < 1e-3 && px.iter().cloned().fold(0.0, f32::max) > 0.99
-        );
+        let px: Vec<f32> = (w.start..w.start + 50).map(|t| s.movie[[t, 0, 0]]).collect();
+        assert!(px.iter().sum::<f32>().abs() < 1e-3 && px.iter().cloned().fold(0.0, f32::max) > 0.99);
         // Rate = 2 + 1.5 cos(2 pi 2 t): F1 1.5 at 2 Hz, mean 2.
         let mut rates = ndarray::Array2::<f32>::zeros((s.meta.frames, 1));
         for t in 0..s.meta.frames {
-            rates[[t, 0]] =
-                2.0 + 1.5 * (2.0 * PI * 2.0 * (t as f64 - w.start as f64) / 100.0).cos() as f32;
+            rates[[t, 0]] = 2.0 + 1.5 * (2.0 * PI * 2.0 * (t as f64 - w.start as f64) / 100.0).cos() as f32;
         }
-        let obs = Observed {
-            meta: &s.meta,
-            movie: &s.movie,
-            rates: rates.view(),
-            lags: 2,
-            rf_centres: &[(0.0, 0.0)],
-        };
+        let obs = Observed { meta: &s.meta, movie: &s.movie, rates: rates.view(), lags: 2, rf_centres: &[(0.0, 0.0)] };
         let m = Gratings.measure(&obs).unwrap().summary;
         let row = &m["cells"][0]["conditions"][0];
-        assert!(
-            (row["f1_amplitude"].as_f64().unwrap() - 1.5).abs() < 1e-3,
-            "{row}"
-        );
+        assert!((row["f1_amplitude"].as_f64().unwrap() - 1.5).abs() < 1e-3, "{row}");
         assert!((row["mean"].as_f64().unwrap() - 2.0).abs() < 1e-3);
     }
 
     #[test]
     fn drift_above_nyquist_is_refused() {
-        let c = Canvas {
-            height: 4,
-            width: 4,
-            lags: 2,
-            frame_rate_hz: 60.0,
-            pixel_um: 50.0,
-        };
+        let c = Canvas { height: 4, width: 4, lags: 2, frame_rate_hz: 60.0, pixel_um: 50.0 };
         let p = Params::parse("gratings", Gratings.specs(), &["temporal_hz=30".into()]).unwrap();
         assert!(Gratings.draw(&p, &c, 0).is_err());
     }

@@ -75,11 +75,7 @@ pub fn find(name: &str) -> Result<&'static dyn Protocol> {
     if let Some(p) = all.iter().find(|p| p.name() == name) {
         return Ok(*p);
     }
-    let nearest = all
-        .iter()
-        .min_by_key(|p| edit_distance(p.name(), name))
-        .map(|p| p.name())
-        .unwrap_or("");
+    let nearest = all.iter().min_by_key(|p| edit_distance(p.name(), name)).map(|p| p.name()).unwrap_or("");
     let names: Vec<_> = all.iter().map(|p| p.name()).collect();
     Err(Error::Usage(format!(
         "unknown protocol '{name}'; did you mean '{nearest}'? Protocols: {} (`sufficit stimulus --list`)",
@@ -96,9 +92,7 @@ fn edit_distance(a: &str, b: &str) -> usize {
         row[0] = i + 1;
         for j in 0..b.len() {
             let cur = row[j + 1];
-            row[j + 1] = (prev + usize::from(ca != b[j]))
-                .min(row[j] + 1)
-                .min(cur + 1);
+            row[j + 1] = (prev + usize::from(ca != b[j])).min(row[j] + 1).min(cur + 1);
             prev = cur;
         }
     }
@@ -143,12 +137,7 @@ mod tests {
     fn every_protocol_documents_units_and_sources() {
         for p in all() {
             for s in p.specs() {
-                assert!(
-                    !s.source.is_empty() && !s.doc.is_empty(),
-                    "{}: {}",
-                    p.name(),
-                    s.name
-                );
+                assert!(!s.source.is_empty() && !s.doc.is_empty(), "{}: {}", p.name(), s.name);
             }
             assert!(describe(p).contains(p.name()));
         }

@@ -22,33 +22,21 @@ fn read_png_folder(dir: &Path) -> Result<Array3<f32>> {
         .collect();
     files.sort();
     if files.is_empty() {
-        return Err(Error::Usage(format!(
-            "'{}' holds no .png frames",
-            dir.display()
-        )));
+        return Err(Error::Usage(format!("'{}' holds no .png frames", dir.display())));
     }
     let mut frames = Vec::new();
     for f in &files {
-        let img = image::open(f)
-            .map_err(|e| Error::Usage(format!("cannot read frame '{}': {e}", f.display())))?
-            .to_luma8();
+        let img =
+            image::open(f).map_err(|e| Error::Usage(format!("cannot read frame '{}': {e}", f.display())))?.to_luma8();
         frames.push(img);
     }
     let (w, h) = frames[0].dimensions();
-    if let Some((f, _)) = files
-        .iter()
-        .zip(&frames)
-        .find(|(_, i)| i.dimensions() != (w, h))
-    {
-        return Err(Error::Usage(format!(
-            "frame '{}' is not {w}x{h} like the first frame",
-            f.display()
-        )));
+    if let Some((f, _)) = files.iter().zip(&frames).find(|(_, i)| i.dimensions() != (w, h)) {
+        return Err(Error::Usage(format!("frame '{}' is not {w}x{h} like the first frame", f.display())));
     }
-    Ok(Array3::from_shape_fn(
-        (frames.len(), h as usize, w as usize),
-        |(t, y, x)| frames[t].get_pixel(x as u32, y as u32)[0] as f32 / 127.5 - 1.0,
-    ))
+    Ok(Array3::from_shape_fn((frames.len(), h as usize, w as usize), |(t, y, x)| {
+        frames[t].get_pixel(x as u32, y as u32)[0] as f32 / 127.5 - 1.0
+    }))
 }
 
 impl Protocol for UserMovie {
@@ -61,28 +49,16 @@ impl Protocol for UserMovie {
     }
 
     fn specs(&self) -> Vec<Spec> {
-        vec![Spec::text(
-            "path",
-            "",
-            &[],
-            "required",
-            "a .npy file or a folder of PNG frames",
-        )]
+        vec![Spec::text("path", "", &[], "required", "a .npy file or a folder of PNG frames")]
     }
 
     fn draw(&self, p: &Params, c: &Canvas, _seed: u64) -> Result<Drawn> {
         let path = p.text("path");
         if path.is_empty() {
-            return Err(Error::Usage(
-                "movie: give the movie with path=FILE.npy or path=FOLDER_OF_PNGS".into(),
-            ));
+            return Err(Error::Usage("movie: give the movie with path=FILE.npy or path=FOLDER_OF_PNGS".into()));
         }
         let path = Path::new(&path);
-        let movie = if path.is_dir() {
-            read_png_folder(path)?
-        } else {
-            read_movie(path)?
-        };
+        let movie = if path.is_dir() { read_png_folder(path)? } else { read_movie(path)? };
         let (f, h, w) = movie.dim();
         if (h, w) != (c.height, c.width) {
             return Err(Error::Usage(format!(
@@ -101,12 +77,7 @@ impl Protocol for UserMovie {
         Ok(Drawn {
             movie,
             events: vec![],
-            windows: vec![Window {
-                name: "movie".into(),
-                start: 0,
-                end: f,
-                condition: None,
-            }],
+            windows: vec![Window { name: "movie".into(), start: 0, end: f, condition: None }],
         })
     }
 
@@ -123,10 +94,7 @@ impl Protocol for UserMovie {
                 json!({"cell": c, "mean": json(mean(&obs.rates, c, w.start, w.end)), "peak": json(pk), "peak_frame": at})
             })
             .collect();
-        Ok(Measured {
-            summary: json!({ "cells": cells }),
-            arrays: vec![],
-        })
+        Ok(Measured { summary: json!({ "cells": cells }), arrays: vec![] })
     }
 }
 
@@ -136,21 +104,11 @@ mod tests {
     use ndarray_npy::WriteNpyExt;
 
     fn canvas() -> Canvas {
-        Canvas {
-            height: 4,
-            width: 5,
-            lags: 2,
-            frame_rate_hz: 100.0,
-            pixel_um: 50.0,
-        }
+        Canvas { height: 4, width: 5, lags: 2, frame_rate_hz: 100.0, pixel_um: 50.0 }
     }
 
     fn draw_from(path: &Path) -> Result<Drawn> {
-        let p = Params::parse(
-            "movie",
-            UserMovie.specs(),
-            &[format!("path={}", path.display())],
-        )?;
+        let p = Params::parse("movie", UserMovie.specs(), &[format!("path={}", path.display())])?;
         UserMovie.draw(&p, &canvas(), 0)
     }
 
@@ -158,46 +116,24 @@ mod tests {
     fn npy_movies_are_read_and_checked() {
         let d = tempfile::tempdir().unwrap();
         let ok = d.path().join("ok.npy");
-        Array3::<f32>::from_elem((7, 4, 5), 0.5)
-            .write_npy(std::fs::File::create(&ok).unwrap())
-            .unwrap();
+        Array3::<f32>::from_elem((7, 4, 5), 0.5).write_npy(std::fs::File::create(&ok).unwrap()).unwrap();
         assert_eq!(draw_from(&ok).unwrap().movie.dim(), (7, 4, 5));
         let wrong_size = d.path().join("size.npy");
-        Array3::<f32>::zeros((7, 4, 6))
-            .write_npy(std::fs::File::create(&wrong_size).unwrap())
-            .unwrap();
-        assert!(draw_from(&wrong_size)
-            .err()
-            .unwrap()
-            .to_string()
-            .contains("takes 4x5"));
+        Array3::<f32>::zeros((7, 4, 6)).write_npy(std::fs::File::create(&wrong_size).unwrap()).unwrap();
+        assert!(draw_from(&wrong_size).err().unwrap().to_string().contains("takes 4x5"));
         let f64_movie = d.path().join("f64.npy");
-        Array3::<f64>::zeros((7, 4, 5))
-            .write_npy(std::fs::File::create(&f64_movie).unwrap())
-            .unwrap();
-        assert!(draw_from(&f64_movie)
-            .err()
-            .unwrap()
-            .to_string()
-            .contains("float32"));
+        Array3::<f64>::zeros((7, 4, 5)).write_npy(std::fs::File::create(&f64_movie).unwrap()).unwrap();
+        assert!(draw_from(&f64_movie).err().unwrap().to_string().contains("float32"));
         let rank2 = d.path().join("rank2.npy");
-        ndarray::Array2::<f32>::zeros((4, 5))
-            .write_npy(std::fs::File::create(&rank2).unwrap())
-            .unwrap();
-        assert!(draw_from(&rank2)
-            .err()
-            .unwrap()
-            .to_string()
-            .contains("rank 2"));
+        ndarray::Array2::<f32>::zeros((4, 5)).write_npy(std::fs::File::create(&rank2).unwrap()).unwrap();
+        assert!(draw_from(&rank2).err().unwrap().to_string().contains("rank 2"));
     }
 
     #[test]
     fn png_folders_become_contrast_movies() {
         let d = tempfile::tempdir().unwrap();
         for (i, g) in [0u8, 255].iter().enumerate() {
-            image::GrayImage::from_pixel(5, 4, image::Luma([*g]))
-                .save(d.path().join(format!("f{i}.png")))
-                .unwrap();
+            image::GrayImage::from_pixel(5, 4, image::Luma([*g])).save(d.path().join(format!("f{i}.png"))).unwrap();
         }
         let m = draw_from(d.path()).unwrap().movie;
         assert_eq!(m.dim(), (2, 4, 5));

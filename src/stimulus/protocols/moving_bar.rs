@@ -53,13 +53,7 @@ impl Protocol for MovingBar {
                 "common practice",
                 "bar contrast; negative for a dark bar",
             ),
-            Spec::text(
-                "direction",
-                "rightward",
-                &["rightward", "leftward"],
-                "common practice",
-                "direction of motion",
-            ),
+            Spec::text("direction", "rightward", &["rightward", "leftward"], "common practice", "direction of motion"),
         ]
     }
 
@@ -70,9 +64,7 @@ impl Protocol for MovingBar {
         let travel = c.width as f64 + width;
         let total = (travel / v).ceil() as usize + 1;
         if total > 2_000_000 {
-            return Err(Error::Usage(format!(
-                "moving-bar: the sweep would take {total} frames; raise speed_um_s"
-            )));
+            return Err(Error::Usage(format!("moving-bar: the sweep would take {total} frames; raise speed_um_s")));
         }
         let contrast = p.num("contrast") as f32;
         let mut movie = c.blank(total);
@@ -81,44 +73,23 @@ impl Protocol for MovingBar {
             let x = if leftward { c.width as f64 - x } else { x };
             let cover = column_coverage(c.width, x - width / 2.0, x + width / 2.0);
             for mut row in movie.index_axis_mut(ndarray::Axis(0), t).rows_mut() {
-                row.iter_mut()
-                    .zip(&cover)
-                    .for_each(|(px, k)| *px = contrast * k);
+                row.iter_mut().zip(&cover).for_each(|(px, k)| *px = contrast * k);
             }
         }
         Ok(Drawn {
             movie,
-            events: vec![Event {
-                name: "bar_enters".into(),
-                frame: 0,
-                condition: None,
-            }],
-            windows: vec![Window {
-                name: "sweep".into(),
-                start: 0,
-                end: total,
-                condition: None,
-            }],
+            events: vec![Event { name: "bar_enters".into(), frame: 0, condition: None }],
+            windows: vec![Window { name: "sweep".into(), start: 0, end: total, condition: None }],
         })
     }
 
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let m = obs.meta;
-        let (Some(speed), Some(width_um)) = (m.number("speed_um_s"), m.number("bar_width_um"))
-        else {
-            return Err(Error::Usage(
-                "moving-bar: stimulus.json lacks speed_um_s or bar_width_um".into(),
-            ));
+        let (Some(speed), Some(width_um)) = (m.number("speed_um_s"), m.number("bar_width_um")) else {
+            return Err(Error::Usage("moving-bar: stimulus.json lacks speed_um_s or bar_width_um".into()));
         };
-        let leftward = m
-            .parameters
-            .get("direction")
-            .and_then(|d| d["value"].as_str())
-            == Some("leftward");
-        let start = m
-            .events_named("bar_enters")
-            .next()
-            .map_or(m.history_frames, |e| e.frame);
+        let leftward = m.parameters.get("direction").and_then(|d| d["value"].as_str()) == Some("leftward");
+        let start = m.events_named("bar_enters").next().map_or(m.history_frames, |e| e.frame);
         let sweep = m.windows_named("sweep").next().cloned();
         let v_px = speed / m.pixel_size_um / m.frame_rate_hz;
         let width = width_um / m.pixel_size_um;
@@ -135,10 +106,7 @@ impl Protocol for MovingBar {
                     "lead_ms": json(lead_ms), "lead_um": json(lead_ms / 1000.0 * speed)})
             })
             .collect();
-        Ok(Measured {
-            summary: json!({ "cells": cells }),
-            arrays: vec![],
-        })
+        Ok(Measured { summary: json!({ "cells": cells }), arrays: vec![] })
     }
 }
 
@@ -149,13 +117,7 @@ mod tests {
 
     #[test]
     fn lead_of_a_synthetic_anticipating_cell() {
-        let c = Canvas {
-            height: 2,
-            width: 30,
-            lags: 3,
-            frame_rate_hz: 100.0,
-            pixel_um: 50.0,
-        };
+        let c = Canvas { height: 2, width: 30, lags: 3, frame_rate_hz: 100.0, pixel_um: 50.0 };
         let p = Params::parse("moving-bar", MovingBar.specs(), &[]).unwrap();
         let s = Stimulus::assemble("moving-bar", &p, &c, 0, MovingBar.draw(&p, &c, 0).unwrap());
         // 500 um/s = 0.1 px/frame; the bar (2 px wide) enters at frame 3 (history) with its
@@ -163,26 +125,10 @@ mod tests {
         // frame 103 leads by 10 frames = 100 ms = 50 um.
         let mut rates = ndarray::Array2::<f32>::zeros((s.meta.frames, 1));
         rates[[103, 0]] = 1.0;
-        let obs = Observed {
-            meta: &s.meta,
-            movie: &s.movie,
-            rates: rates.view(),
-            lags: 3,
-            rf_centres: &[(1.0, 10.0)],
-        };
+        let obs = Observed { meta: &s.meta, movie: &s.movie, rates: rates.view(), lags: 3, rf_centres: &[(1.0, 10.0)] };
         let m = MovingBar.measure(&obs).unwrap().summary;
-        assert!(
-            (m["cells"][0]["lead_um"].as_f64().unwrap() - 50.0).abs() < 1e-6,
-            "{m}"
-        );
+        assert!((m["cells"][0]["lead_um"].as_f64().unwrap() - 50.0).abs() < 1e-6, "{m}");
         // Geometry: at frame 113 the bar covers columns 9 and 10 fully.
-        assert_eq!(
-            (
-                s.movie[[113, 0, 9]],
-                s.movie[[113, 0, 10]],
-                s.movie[[113, 0, 11]]
-            ),
-            (1.0, 1.0, 0.0)
-        );
+        assert_eq!((s.movie[[113, 0, 9]], s.movie[[113, 0, 10]], s.movie[[113, 0, 11]]), (1.0, 1.0, 0.0));
     }
 }

@@ -68,15 +68,7 @@ impl Protocol for OmittedFlash {
                 "common practice",
                 "flash contrast; negative for dark flashes",
             ),
-            Spec::num(
-                "rest_ms",
-                "ms",
-                1000.0,
-                0.0,
-                60000.0,
-                "common practice",
-                "gray before each train (baseline)",
-            ),
+            Spec::num("rest_ms", "ms", 1000.0, 0.0, 60000.0, "common practice", "gray before each train (baseline)"),
             Spec::num(
                 "after_ms",
                 "ms",
@@ -90,18 +82,19 @@ impl Protocol for OmittedFlash {
     }
 
     fn draw(&self, p: &Params, c: &Canvas, _seed: u64) -> Result<Drawn> {
-        let (flash, rest, after) = (
-            c.frames(p.num("flash_ms")),
-            c.frames(p.num("rest_ms")),
-            c.frames(p.num("after_ms")),
-        );
+        let (flash, rest, after) =
+            (c.frames(p.num("flash_ms")), c.frames(p.num("rest_ms")), c.frames(p.num("after_ms")));
         let (slots, omitted) = (p.num("flashes") as usize, p.num("omitted") as usize);
         let contrast = p.num("contrast") as f32;
         if omitted > slots {
-            return Err(Error::Usage(format!("omitted-flash: omitted={omitted} lies beyond the train of {slots} flashes; choose 2..={slots}")));
+            return Err(Error::Usage(format!(
+                "omitted-flash: omitted={omitted} lies beyond the train of {slots} flashes; choose 2..={slots}"
+            )));
         }
         if flash == 0 || contrast == 0.0 || after == 0 {
-            return Err(Error::Usage("omitted-flash: flash_ms and after_ms must last at least one frame and contrast must not be 0".into()));
+            return Err(Error::Usage(
+                "omitted-flash: flash_ms and after_ms must last at least one frame and contrast must not be 0".into(),
+            ));
         }
         let mut events = Vec::new();
         let mut windows = Vec::new();
@@ -127,33 +120,12 @@ impl Protocol for OmittedFlash {
             for k in 0..slots {
                 let onset = t + k * period;
                 if k + 1 == omitted {
-                    events.push(Event {
-                        name: "omitted_flash".into(),
-                        frame: onset,
-                        condition: cond.clone(),
-                    });
-                    events.push(Event {
-                        name: "last_flash".into(),
-                        frame: onset - period,
-                        condition: cond.clone(),
-                    });
-                    let end = if omitted < slots {
-                        onset + period
-                    } else {
-                        onset + after
-                    };
-                    windows.push(Window {
-                        name: "after_omission".into(),
-                        start: onset,
-                        end,
-                        condition: cond.clone(),
-                    });
+                    events.push(Event { name: "omitted_flash".into(), frame: onset, condition: cond.clone() });
+                    events.push(Event { name: "last_flash".into(), frame: onset - period, condition: cond.clone() });
+                    let end = if omitted < slots { onset + period } else { onset + after };
+                    windows.push(Window { name: "after_omission".into(), start: onset, end, condition: cond.clone() });
                 } else {
-                    events.push(Event {
-                        name: "flash".into(),
-                        frame: onset,
-                        condition: cond.clone(),
-                    });
+                    events.push(Event { name: "flash".into(), frame: onset, condition: cond.clone() });
                     frames.push((onset, flash));
                 }
             }
@@ -161,15 +133,9 @@ impl Protocol for OmittedFlash {
         }
         let mut movie = c.blank(t);
         for (start, len) in frames {
-            movie
-                .slice_mut(ndarray::s![start..start + len, .., ..])
-                .fill(contrast);
+            movie.slice_mut(ndarray::s![start..start + len, .., ..]).fill(contrast);
         }
-        Ok(Drawn {
-            movie,
-            events,
-            windows,
-        })
+        Ok(Drawn { movie, events, windows })
     }
 
     fn measure(&self, obs: &Observed) -> Result<Measured> {
@@ -178,18 +144,12 @@ impl Protocol for OmittedFlash {
         let mut cells = Vec::new();
         for cell in 0..obs.rates.ncols() {
             let mut rows = Vec::new();
-            let (mut periods, mut lat_last, mut lat_expected) =
-                (Vec::new(), Vec::new(), Vec::new());
+            let (mut periods, mut lat_last, mut lat_expected) = (Vec::new(), Vec::new(), Vec::new());
             for w in m.windows_named("after_omission") {
                 let cond = w.condition.clone();
-                let find = |name: &str| {
-                    m.events
-                        .iter()
-                        .find(|e| e.name == name && e.condition == cond)
-                        .map(|e| e.frame)
-                };
-                let (Some(expected), Some(last)) = (find("omitted_flash"), find("last_flash"))
-                else {
+                let find =
+                    |name: &str| m.events.iter().find(|e| e.name == name && e.condition == cond).map(|e| e.frame);
+                let (Some(expected), Some(last)) = (find("omitted_flash"), find("last_flash")) else {
                     continue;
                 };
                 let base = m
@@ -219,10 +179,7 @@ impl Protocol for OmittedFlash {
                 "latency_from_expected_vs_period_slope": json(slope(&periods, &lat_expected)),
             }));
         }
-        Ok(Measured {
-            summary: json!({ "cells": cells }),
-            arrays: vec![],
-        })
+        Ok(Measured { summary: json!({ "cells": cells }), arrays: vec![] })
     }
 }
 
@@ -232,13 +189,7 @@ mod tests {
     use crate::stimulus::{Params, Stimulus};
 
     fn canvas() -> Canvas {
-        Canvas {
-            height: 6,
-            width: 8,
-            lags: 5,
-            frame_rate_hz: 100.0,
-            pixel_um: 50.0,
-        }
+        Canvas { height: 6, width: 8, lags: 5, frame_rate_hz: 100.0, pixel_um: 50.0 }
     }
 
     fn draw(args: &[&str]) -> Result<Stimulus> {
@@ -255,54 +206,27 @@ mod tests {
         assert_eq!(flashes.len(), 2 * 5);
         for e in &flashes {
             for f in e.frame..e.frame + 2 {
-                assert!(
-                    s.movie
-                        .index_axis(ndarray::Axis(0), f)
-                        .iter()
-                        .all(|&v| v == 1.0),
-                    "frame {f} lit"
-                );
+                assert!(s.movie.index_axis(ndarray::Axis(0), f).iter().all(|&v| v == 1.0), "frame {f} lit");
             }
-            assert!(s
-                .movie
-                .index_axis(ndarray::Axis(0), e.frame + 2)
-                .iter()
-                .all(|&v| v == 0.0));
+            assert!(s.movie.index_axis(ndarray::Axis(0), e.frame + 2).iter().all(|&v| v == 0.0));
         }
         let omitted: Vec<_> = s.meta.events_named("omitted_flash").collect();
         assert_eq!(omitted.len(), 2);
         for e in omitted {
-            let period = if e.condition.as_deref() == Some("period_ms=80") {
-                8
-            } else {
-                10
-            };
+            let period = if e.condition.as_deref() == Some("period_ms=80") { 8 } else { 10 };
             for f in e.frame - period + 2..e.frame + period {
-                assert!(
-                    s.movie
-                        .index_axis(ndarray::Axis(0), f)
-                        .iter()
-                        .all(|&v| v == 0.0),
-                    "frame {f} dark"
-                );
+                assert!(s.movie.index_axis(ndarray::Axis(0), f).iter().all(|&v| v == 0.0), "frame {f} dark");
             }
         }
         // Frames before the first rest are the gray history.
-        assert!(s
-            .movie
-            .slice(ndarray::s![..5, .., ..])
-            .iter()
-            .all(|&v| v == 0.0));
+        assert!(s.movie.slice(ndarray::s![..5, .., ..]).iter().all(|&v| v == 0.0));
     }
 
     #[test]
     fn contradictory_parameters_are_refused() {
         let e = draw(&["flashes=6", "omitted=9"]).err().unwrap().to_string();
         assert!(e.contains("beyond the train"), "{e}");
-        let e = draw(&["flash_ms=100", "period_ms=80"])
-            .err()
-            .unwrap()
-            .to_string();
+        let e = draw(&["flash_ms=100", "period_ms=80"]).err().unwrap().to_string();
         assert!(e.contains("does not fit"), "{e}");
         let e = draw(&["contrast=3"]).err().unwrap().to_string();
         assert!(e.contains("between -1 and 1"), "{e}");
@@ -318,33 +242,14 @@ mod tests {
         for e in s.meta.events_named("omitted_flash") {
             rates[[e.frame + 5, 0]] = 9.0;
         }
-        let obs = Observed {
-            meta: &s.meta,
-            movie: &s.movie,
-            rates: rates.view(),
-            lags: 5,
-            rf_centres: &[(0.0, 0.0)],
-        };
+        let obs = Observed { meta: &s.meta, movie: &s.movie, rates: rates.view(), lags: 5, rf_centres: &[(0.0, 0.0)] };
         let m = OmittedFlash.measure(&obs).unwrap().summary;
         let cell = &m["cells"][0];
         for row in cell["periods"].as_array().unwrap() {
             assert_eq!(row["latency_from_expected_ms"], 50.0);
             assert_eq!(row["peak_above_baseline"], 8.0);
         }
-        assert!(
-            (cell["latency_from_last_flash_vs_period_slope"]
-                .as_f64()
-                .unwrap()
-                - 1.0)
-                .abs()
-                < 1e-9
-        );
-        assert!(
-            cell["latency_from_expected_vs_period_slope"]
-                .as_f64()
-                .unwrap()
-                .abs()
-                < 1e-9
-        );
+        assert!((cell["latency_from_last_flash_vs_period_slope"].as_f64().unwrap() - 1.0).abs() < 1e-9);
+        assert!(cell["latency_from_expected_vs_period_slope"].as_f64().unwrap().abs() < 1e-9);
     }
 }

@@ -32,15 +32,7 @@ impl Protocol for ReversingBar {
 
     fn specs(&self) -> Vec<Spec> {
         vec![
-            Spec::num(
-                "bar_width_um",
-                "um",
-                100.0,
-                1.0,
-                1e5,
-                "common practice",
-                "bar width on the sensor surface",
-            ),
+            Spec::num("bar_width_um", "um", 100.0, 1.0, 1e5, "common practice", "bar width on the sensor surface"),
             Spec::num(
                 "speed_um_s",
                 "um/s",
@@ -60,13 +52,13 @@ impl Protocol for ReversingBar {
                 "bar contrast; negative for a dark bar",
             ),
             Spec::num(
-                "start_um",
-                "um",
-                0.0,
-                -1e6,
-                1e6,
-                "common practice: start at the left edge",
-                "bar centre at the start, from the left edge",
+                "approach_ms",
+                "ms",
+                800.0,
+                20.0,
+                600000.0,
+                "common practice",
+                "motion before the reversal (the bar may start off screen)",
             ),
             Spec::num(
                 "reversal_um",
@@ -77,15 +69,7 @@ impl Protocol for ReversingBar {
                 "common practice: the frame centre (-1)",
                 "bar centre at the reversal, from the left edge; -1 = frame centre",
             ),
-            Spec::num(
-                "after_ms",
-                "ms",
-                800.0,
-                10.0,
-                60000.0,
-                "common practice",
-                "motion after the reversal",
-            ),
+            Spec::num("after_ms", "ms", 800.0, 10.0, 60000.0, "common practice", "motion after the reversal"),
             Spec::num(
                 "window_ms",
                 "ms",
@@ -101,21 +85,13 @@ impl Protocol for ReversingBar {
     fn draw(&self, p: &Params, c: &Canvas, _seed: u64) -> Result<Drawn> {
         let width = c.px(p.num("bar_width_um"));
         let v = c.px(p.num("speed_um_s")) / c.frame_rate_hz;
-        let x0 = c.px(p.num("start_um"));
-        let xr = if p.num("reversal_um") < 0.0 {
-            c.width as f64 / 2.0
-        } else {
-            c.px(p.num("reversal_um"))
-        };
-        if xr <= x0 {
-            return Err(Error::Usage(format!("reversing-bar: the reversal position ({xr:.1} px) must lie to the right of the start ({x0:.1} px)")));
-        }
-        let reversal = ((xr - x0) / v).round();
+        let xr = if p.num("reversal_um") < 0.0 { c.width as f64 / 2.0 } else { c.px(p.num("reversal_um")) };
+        let reversal = c.frames(p.num("approach_ms")) as f64;
+        let x0 = xr - v * reversal;
         let win = c.frames(p.num("window_ms")).max(1);
         if (reversal as usize) < 2 * win {
             return Err(Error::Usage(format!(
-                "reversing-bar: the bar reaches the reversal after {} frames, too soon for a smooth-motion window of {win} frames before it; start further left or move slower",
-                reversal
+                "reversing-bar: approach_ms ({reversal} frames) must be at least twice window_ms ({win} frames) so smooth motion can be measured before the reversal"
             )));
         }
         let total = reversal as usize + c.frames(p.num("after_ms")).max(win);
@@ -125,32 +101,16 @@ impl Protocol for ReversingBar {
             let centre = bar_centre(x0, v, reversal, t as f64);
             let cover = column_coverage(c.width, centre - width / 2.0, centre + width / 2.0);
             for mut row in movie.index_axis_mut(ndarray::Axis(0), t).rows_mut() {
-                row.iter_mut()
-                    .zip(&cover)
-                    .for_each(|(px, k)| *px = contrast * k);
+                row.iter_mut().zip(&cover).for_each(|(px, k)| *px = contrast * k);
             }
         }
         let r = reversal as usize;
         Ok(Drawn {
             movie,
-            events: vec![Event {
-                name: "reversal".into(),
-                frame: r,
-                condition: None,
-            }],
+            events: vec![Event { name: "reversal".into(), frame: r, condition: None }],
             windows: vec![
-                Window {
-                    name: "reversal".into(),
-                    start: r,
-                    end: r + win,
-                    condition: None,
-                },
-                Window {
-                    name: "smooth".into(),
-                    start: r - 2 * win,
-                    end: r - win,
-                    condition: None,
-                },
+                Window { name: "reversal".into(), start: r, end: r + win, condition: None },
+                Window { name: "smooth".into(), start: r - 2 * win, end: r - win, condition: None },
             ],
         })
     }
@@ -158,9 +118,7 @@ impl Protocol for ReversingBar {
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let w = |name: &str| obs.meta.windows_named(name).next().cloned();
         let (Some(rev), Some(smooth)) = (w("reversal"), w("smooth")) else {
-            return Err(Error::Usage(
-                "reversing-bar: stimulus.json lacks its reversal/smooth windows".into(),
-            ));
+            return Err(Error::Usage("reversing-bar: stimulus.json lacks its reversal/smooth windows".into()));
         };
         let cells: Vec<_> = (0..obs.rates.ncols())
             .map(|c| {
@@ -168,10 +126,7 @@ impl Protocol for ReversingBar {
                 json!({"cell": c, "reversal_mean": json(a), "smooth_mean": json(b), "reversal_to_smooth_ratio": json(a / b)})
             })
             .collect();
-        Ok(Measured {
-            summary: json!({ "cells": cells }),
-            arrays: vec![],
-        })
+        Ok(Measured { summary: json!({ "cells": cells }), arrays: vec![] })
     }
 }
 
@@ -180,53 +135,31 @@ mod tests {
     use super::*;
 
     fn draw(args: &[&str]) -> Result<Drawn> {
-        let c = Canvas {
-            height: 4,
-            width: 40,
-            lags: 3,
-            frame_rate_hz: 100.0,
-            pixel_um: 50.0,
-        };
+        let c = Canvas { height: 4, width: 40, lags: 3, frame_rate_hz: 100.0, pixel_um: 50.0 };
         let args: Vec<String> = args.iter().map(|s| s.to_string()).collect();
-        ReversingBar.draw(
-            &Params::parse("reversing-bar", ReversingBar.specs(), &args)?,
-            &c,
-            0,
-        )
+        ReversingBar.draw(&Params::parse("reversing-bar", ReversingBar.specs(), &args)?, &c, 0)
     }
 
     #[test]
     fn the_bar_centre_follows_x0_plus_v_t_and_comes_back_after_the_reversal() {
-        // 500 um/s at 50 um/px and 100 Hz = 0.1 px/frame; start at 2 px; reversal at 20 px.
-        let d = draw(&[
-            "speed_um_s=500",
-            "start_um=100",
-            "reversal_um=1000",
-            "bar_width_um=150",
-        ])
-        .unwrap();
+        // 500 um/s at 50 um/px and 100 Hz = 0.1 px/frame; 1.8 s of approach to a reversal at
+        // 20 px, so the bar starts at 2 px.
+        let d = draw(&["speed_um_s=500", "approach_ms=1800", "reversal_um=1000", "bar_width_um=150"]).unwrap();
         let r = d.events[0].frame;
         assert_eq!(r, 180);
         for t in (0..d.movie.shape()[0]).step_by(7) {
             let row = d.movie.slice(ndarray::s![t, 0, ..]);
             let mass: f32 = row.sum();
-            let centre = row
-                .iter()
-                .enumerate()
-                .map(|(x, v)| (x as f32 + 0.5) * v)
-                .sum::<f32>()
-                / mass;
+            let centre = row.iter().enumerate().map(|(x, v)| (x as f32 + 0.5) * v).sum::<f32>() / mass;
             let expected = bar_centre(2.0, 0.1, r as f64, t as f64) as f32;
-            assert!(
-                (centre - expected).abs() < 1.0,
-                "frame {t}: centre {centre} vs {expected}"
-            );
+            assert!((centre - expected).abs() < 1.0, "frame {t}: centre {centre} vs {expected}");
             assert!((mass - 3.0).abs() < 1e-4, "width 3 px");
         }
     }
 
     #[test]
-    fn a_reversal_left_of_the_start_is_refused() {
-        assert!(draw(&["start_um=1500", "reversal_um=1000"]).is_err());
+    fn an_approach_too_short_for_the_smooth_window_is_refused() {
+        let e = draw(&["approach_ms=300", "window_ms=200"]).err().unwrap().to_string();
+        assert!(e.contains("at least twice"), "{e}");
     }
 }

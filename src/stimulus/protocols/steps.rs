@@ -22,24 +22,8 @@ impl Protocol for Steps {
 
     fn specs(&self) -> Vec<Spec> {
         vec![
-            Spec::num(
-                "step_ms",
-                "ms",
-                2000.0,
-                10.0,
-                600000.0,
-                "common practice",
-                "how long each step is held",
-            ),
-            Spec::num(
-                "gap_ms",
-                "ms",
-                2000.0,
-                10.0,
-                600000.0,
-                "common practice",
-                "gray between steps",
-            ),
+            Spec::num("step_ms", "ms", 2000.0, 10.0, 600000.0, "common practice", "how long each step is held"),
+            Spec::num("gap_ms", "ms", 2000.0, 10.0, 600000.0, "common practice", "gray between steps"),
             Spec::list(
                 "contrasts",
                 "Michelson",
@@ -55,39 +39,19 @@ impl Protocol for Steps {
     fn draw(&self, p: &Params, c: &Canvas, _seed: u64) -> Result<Drawn> {
         let (step, gap) = (c.frames(p.num("step_ms")), c.frames(p.num("gap_ms")));
         if step < 4 || gap == 0 {
-            return Err(Error::Usage(
-                "steps: step_ms must last at least 4 frames and gap_ms one frame".into(),
-            ));
+            return Err(Error::Usage("steps: step_ms must last at least 4 frames and gap_ms one frame".into()));
         }
         let contrasts = p.list("contrasts");
         let mut movie = c.blank(gap + 2 * contrasts.len() * (step + gap));
-        let (mut events, mut windows) = (
-            Vec::new(),
-            vec![Window {
-                name: "baseline".into(),
-                start: gap / 2,
-                end: gap,
-                condition: None,
-            }],
-        );
+        let (mut events, mut windows) =
+            (Vec::new(), vec![Window { name: "baseline".into(), start: gap / 2, end: gap, condition: None }]);
         let mut t = gap;
         for &k in &contrasts {
             for (name, sign) in [("on", 1.0f32), ("off", -1.0f32)] {
                 let cond = Some(format!("{name} contrast={k}"));
-                movie
-                    .slice_mut(ndarray::s![t..t + step, .., ..])
-                    .fill(sign * k as f32);
-                events.push(Event {
-                    name: format!("{name}_step"),
-                    frame: t,
-                    condition: cond.clone(),
-                });
-                windows.push(Window {
-                    name: "transient".into(),
-                    start: t,
-                    end: t + step / 4,
-                    condition: cond.clone(),
-                });
+                movie.slice_mut(ndarray::s![t..t + step, .., ..]).fill(sign * k as f32);
+                events.push(Event { name: format!("{name}_step"), frame: t, condition: cond.clone() });
+                windows.push(Window { name: "transient".into(), start: t, end: t + step / 4, condition: cond.clone() });
                 windows.push(Window {
                     name: "sustained".into(),
                     start: t + 3 * step / 4,
@@ -97,11 +61,7 @@ impl Protocol for Steps {
                 t += step + gap;
             }
         }
-        Ok(Drawn {
-            movie,
-            events,
-            windows,
-        })
+        Ok(Drawn { movie, events, windows })
     }
 
     fn measure(&self, obs: &Observed) -> Result<Measured> {
@@ -125,10 +85,7 @@ impl Protocol for Steps {
                 json!({"cell": c, "baseline": json(base), "polarity_index_largest_step": json(index(on_top, off_top)), "steps": rows})
             })
             .collect();
-        Ok(Measured {
-            summary: json!({ "cells": cells }),
-            arrays: vec![],
-        })
+        Ok(Measured { summary: json!({ "cells": cells }), arrays: vec![] })
     }
 }
 
@@ -139,13 +96,7 @@ mod tests {
 
     #[test]
     fn adaptation_ratio_on_a_synthetic_adapting_cell() {
-        let c = Canvas {
-            height: 2,
-            width: 2,
-            lags: 3,
-            frame_rate_hz: 100.0,
-            pixel_um: 50.0,
-        };
+        let c = Canvas { height: 2, width: 2, lags: 3, frame_rate_hz: 100.0, pixel_um: 50.0 };
         let p = Params::parse("steps", Steps.specs(), &["contrasts=1".into()]).unwrap();
         let s = Stimulus::assemble("steps", &p, &c, 0, Steps.draw(&p, &c, 0).unwrap());
         // Baseline 1; after the ON step: peak 9, decaying to a plateau of 3 (ratio 2/8).
@@ -154,19 +105,10 @@ mod tests {
         for t in on..on + 200 {
             rates[[t, 0]] = 3.0 + 6.0 * (-((t - on) as f32) / 10.0).exp();
         }
-        let obs = Observed {
-            meta: &s.meta,
-            movie: &s.movie,
-            rates: rates.view(),
-            lags: 3,
-            rf_centres: &[(0.0, 0.0)],
-        };
+        let obs = Observed { meta: &s.meta, movie: &s.movie, rates: rates.view(), lags: 3, rf_centres: &[(0.0, 0.0)] };
         let m = Steps.measure(&obs).unwrap().summary;
         let row = &m["cells"][0]["steps"][0];
-        assert!(
-            (row["adaptation_ratio"].as_f64().unwrap() - 0.25).abs() < 1e-4,
-            "{row}"
-        );
+        assert!((row["adaptation_ratio"].as_f64().unwrap() - 0.25).abs() < 1e-4, "{row}");
         assert_eq!(m["cells"][0]["polarity_index_largest_step"], 1.0);
     }
 }

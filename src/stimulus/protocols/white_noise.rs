@@ -35,17 +35,10 @@ pub fn spike_triggered_average(
         total += r;
         for l in 0..lags {
             let frame = movie.index_axis(Axis(0), t + 1 + l - lags);
-            sta.index_axis_mut(Axis(0), l)
-                .zip_mut_with(&frame, |a, &b| *a += r * b as f64);
+            sta.index_axis_mut(Axis(0), l).zip_mut_with(&frame, |a, &b| *a += r * b as f64);
         }
     }
-    sta.mapv(|v| {
-        if total != 0.0 {
-            (v / total) as f32
-        } else {
-            0.0
-        }
-    })
+    sta.mapv(|v| if total != 0.0 { (v / total) as f32 } else { 0.0 })
 }
 
 /// Rank-one SVD of `m` by power iteration: (sigma, left vector, right vector, share of the
@@ -67,11 +60,7 @@ pub fn rank_one(m: &Array2<f64>) -> (f64, Array1<f64>, Array1<f64>, f64) {
         }
     }
     let sigma = u.dot(&m.dot(&v));
-    let share = if total > 0.0 {
-        sigma * sigma / total
-    } else {
-        0.0
-    };
+    let share = if total > 0.0 { sigma * sigma / total } else { 0.0 };
     (sigma, u, v, share)
 }
 
@@ -86,8 +75,22 @@ impl Protocol for WhiteNoise {
 
     fn specs(&self) -> Vec<Spec> {
         vec![
-            Spec::text("kind", "binary", &["binary", "gaussian"], "common practice", "binary: each checker is +-contrast; gaussian: standard deviation contrast/3, clipped to +-1"),
-            Spec::num("checker_um", "um", 100.0, 0.01, 1e5, "common practice: checkers near the size of a receptive-field centre or smaller", "checker size"),
+            Spec::text(
+                "kind",
+                "binary",
+                &["binary", "gaussian"],
+                "common practice",
+                "binary: each checker is +-contrast; gaussian: standard deviation contrast/3, clipped to +-1",
+            ),
+            Spec::num(
+                "checker_um",
+                "um",
+                100.0,
+                0.01,
+                1e5,
+                "common practice: checkers near the size of a receptive-field centre or smaller",
+                "checker size",
+            ),
             Spec::num("duration_ms", "ms", 30000.0, 10.0, 3.6e6, "common practice", "length of the noise"),
             Spec::num("hold_frames", "frames", 1.0, 1.0, 1000.0, "common practice", "frames each pattern is held"),
             Spec::num("contrast", "Michelson", 1.0, 0.0, 1.0, "common practice", "noise contrast"),
@@ -97,29 +100,17 @@ impl Protocol for WhiteNoise {
     fn draw(&self, p: &Params, c: &Canvas, seed: u64) -> Result<Drawn> {
         let frames = c.frames(p.num("duration_ms"));
         if frames <= c.lags {
-            return Err(Error::Usage(format!(
-                "white-noise: {frames} frames are too few for a {}-lag model",
-                c.lags
-            )));
+            return Err(Error::Usage(format!("white-noise: {frames} frames are too few for a {}-lag model", c.lags)));
         }
         if frames * c.height * c.width > 500_000_000 {
-            return Err(Error::Usage(
-                "white-noise: the movie would exceed 2 GB; shorten duration_ms".into(),
-            ));
+            return Err(Error::Usage("white-noise: the movie would exceed 2 GB; shorten duration_ms".into()));
         }
         let cs = c.px(p.num("checker_um"));
-        let (ny, nx) = (
-            (c.height as f64 / cs).ceil() as usize,
-            (c.width as f64 / cs).ceil() as usize,
-        );
-        let (gaussian, contrast, hold) = (
-            p.text("kind") == "gaussian",
-            p.num("contrast") as f32,
-            p.num("hold_frames") as usize,
-        );
+        let (ny, nx) = ((c.height as f64 / cs).ceil() as usize, (c.width as f64 / cs).ceil() as usize);
+        let (gaussian, contrast, hold) =
+            (p.text("kind") == "gaussian", p.num("contrast") as f32, p.num("hold_frames") as usize);
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
-        let normal = rand_distr::Normal::new(0.0f32, contrast / 3.0)
-            .map_err(|e| Error::Usage(e.to_string()))?;
+        let normal = rand_distr::Normal::new(0.0f32, contrast / 3.0).map_err(|e| Error::Usage(e.to_string()))?;
         let mut movie = c.blank(frames);
         let mut pattern = Array2::<f32>::zeros((ny, nx));
         for t in 0..frames {
@@ -140,17 +131,8 @@ impl Protocol for WhiteNoise {
         }
         Ok(Drawn {
             movie,
-            events: vec![Event {
-                name: "noise_start".into(),
-                frame: 0,
-                condition: None,
-            }],
-            windows: vec![Window {
-                name: "noise".into(),
-                start: 0,
-                end: frames,
-                condition: None,
-            }],
+            events: vec![Event { name: "noise_start".into(), frame: 0, condition: None }],
+            windows: vec![Window { name: "noise".into(), start: 0, end: frames, condition: None }],
         })
     }
 
@@ -160,39 +142,23 @@ impl Protocol for WhiteNoise {
             .windows_named("noise")
             .next()
             .cloned()
-            .ok_or_else(|| {
-                Error::Usage("white-noise: stimulus.json lacks its noise window".into())
-            })?;
+            .ok_or_else(|| Error::Usage("white-noise: stimulus.json lacks its noise window".into()))?;
         let (lags, h, wd) = (obs.lags, obs.meta.height, obs.meta.width);
         let cells = obs.rates.ncols();
         let mut stas = Tensor::zeros(ndarray::IxDyn(&[cells, lags, h, wd]));
         let mut rows = Vec::new();
         for c in 0..cells {
-            let sta = spike_triggered_average(
-                obs.movie.view(),
-                obs.rates.column(c),
-                lags,
-                w.start,
-                w.end,
-            );
-            stas.index_axis_mut(Axis(0), c)
-                .assign(&sta.view().into_dyn());
-            let m = sta
-                .mapv(f64::from)
-                .into_shape_with_order((lags, h * wd))
-                .map_err(|e| Error::Usage(e.to_string()))?;
+            let sta = spike_triggered_average(obs.movie.view(), obs.rates.column(c), lags, w.start, w.end);
+            stas.index_axis_mut(Axis(0), c).assign(&sta.view().into_dyn());
+            let m =
+                sta.mapv(f64::from).into_shape_with_order((lags, h * wd)).map_err(|e| Error::Usage(e.to_string()))?;
             let (sigma, temporal, spatial, share) = rank_one(&m);
             // Static nonlinearity: project each window on the unit-norm STA, bin by quantile.
             let norm = m.iter().map(|v| v * v).sum::<f64>().sqrt().max(1e-300);
             let mut pairs: Vec<(f64, f64)> = (w.start + lags - 1..w.end)
                 .map(|t| {
                     let win = obs.movie.slice(s![t + 1 - lags..=t, .., ..]);
-                    let g = win
-                        .iter()
-                        .zip(sta.iter())
-                        .map(|(a, b)| *a as f64 * *b as f64)
-                        .sum::<f64>()
-                        / norm;
+                    let g = win.iter().zip(sta.iter()).map(|(a, b)| *a as f64 * *b as f64).sum::<f64>() / norm;
                     (g, obs.rates[[t, c]] as f64)
                 })
                 .collect();
@@ -205,11 +171,8 @@ impl Protocol for WhiteNoise {
                     json!({"generator": json(b.iter().map(|p| p.0).sum::<f64>() / n), "rate": json(b.iter().map(|p| p.1).sum::<f64>() / n)})
                 })
                 .collect();
-            let peak_lag = temporal
-                .iter()
-                .enumerate()
-                .max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))
-                .map_or(0, |(i, _)| i);
+            let peak_lag =
+                temporal.iter().enumerate().max_by(|a, b| a.1.abs().total_cmp(&b.1.abs())).map_or(0, |(i, _)| i);
             rows.push(json!({
                 "cell": c,
                 "temporal_filter": temporal.iter().map(|v| json(v * sigma.signum())).collect::<Vec<_>>(),
@@ -256,26 +219,11 @@ mod tests {
             (-(((y as f64 - 4.5).powi(2) + (x as f64 - 5.0).powi(2)) / 4.0)).exp()
         });
         let filter = Array3::from_shape_fn((lags, h, w), |(l, y, x)| temporal[l] * spatial[[y, x]]);
-        let c = Canvas {
-            height: h,
-            width: w,
-            lags,
-            frame_rate_hz: 100.0,
-            pixel_um: 50.0,
-        };
-        let p = Params::parse(
-            "white-noise",
-            WhiteNoise.specs(),
-            &["checker_um=50".into(), "duration_ms=400000".into()],
-        )
-        .unwrap();
-        let s = Stimulus::assemble(
-            "white-noise",
-            &p,
-            &c,
-            0,
-            WhiteNoise.draw(&p, &c, 9).unwrap(),
-        );
+        let c = Canvas { height: h, width: w, lags, frame_rate_hz: 100.0, pixel_um: 50.0 };
+        let p =
+            Params::parse("white-noise", WhiteNoise.specs(), &["checker_um=50".into(), "duration_ms=400000".into()])
+                .unwrap();
+        let s = Stimulus::assemble("white-noise", &p, &c, 0, WhiteNoise.draw(&p, &c, 9).unwrap());
         // Mean luminance and contrast are as set: mean ~0, every value +-1.
         let noise = s.movie.slice(s![lags.., .., ..]);
         assert!(noise.iter().all(|&v| v.abs() == 1.0));
@@ -284,11 +232,7 @@ mod tests {
         let mut rates = Array1::<f32>::zeros(s.meta.frames);
         for t in lags - 1..s.meta.frames {
             let win = s.movie.slice(s![t + 1 - lags..=t, .., ..]);
-            let g: f64 = win
-                .iter()
-                .zip(filter.iter())
-                .map(|(a, b)| *a as f64 * b)
-                .sum();
+            let g: f64 = win.iter().zip(filter.iter()).map(|(a, b)| *a as f64 * b).sum();
             rates[t] = (0.5 * g).exp() as f32;
         }
         let win = s.meta.windows_named("noise").next().unwrap();
@@ -297,17 +241,10 @@ mod tests {
         let b: Vec<f64> = filter.iter().copied().collect();
         let r = correlation(&a, &b);
         assert!(r >= 0.95, "STA vs true filter correlation {r}");
-        let (_, u, v, share) = rank_one(
-            &sta.mapv(f64::from)
-                .into_shape_with_order((lags, h * w))
-                .unwrap(),
-        );
+        let (_, u, v, share) = rank_one(&sta.mapv(f64::from).into_shape_with_order((lags, h * w)).unwrap());
         assert!(correlation(u.as_slice().unwrap(), &temporal).abs() >= 0.95);
         assert!(correlation(v.as_slice().unwrap(), spatial.as_slice().unwrap()).abs() >= 0.95);
-        assert!(
-            share > 0.9,
-            "a separable filter is nearly rank one: {share}"
-        );
+        assert!(share > 0.9, "a separable filter is nearly rank one: {share}");
     }
 
     #[test]

@@ -31,10 +31,7 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
     let (lo, hi) = if ctx.opset() < 11 {
         (ctx.float_or("min", f32::MIN), ctx.float_or("max", f32::MAX))
     } else {
-        (
-            ctx.constant_scalar(1, "min")?.unwrap_or(f32::MIN),
-            ctx.constant_scalar(2, "max")?.unwrap_or(f32::MAX),
-        )
+        (ctx.constant_scalar(1, "min")?.unwrap_or(f32::MIN), ctx.constant_scalar(2, "max")?.unwrap_or(f32::MAX))
     };
     if lo > hi {
         return Err(format!("min ({lo}) is larger than max ({hi})").into());
@@ -49,10 +46,6 @@ mod tests {
     #[test]
     fn matches_tract_and_finite_differences() {
         let n = node_io("Clip", &["x", "lo", "hi"], &[]);
-        check_graph(
-            n,
-            &[&[3, 5]],
-            vec![scalar_init("lo", -0.5), scalar_init("hi", 0.7)],
-        );
+        check_graph(n, &[&[3, 5]], vec![scalar_init("lo", -0.5), scalar_init("hi", 0.7)]);
     }
 }

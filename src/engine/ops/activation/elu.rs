@@ -30,12 +30,7 @@ impl Pointwise for Elu {
 
 /// Build from a node: reads `alpha`.
 pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
-    Ok(Built::first(
-        Unary(Elu {
-            alpha: ctx.float_or("alpha", 1.0),
-        }),
-        1,
-    ))
+    Ok(Built::first(Unary(Elu { alpha: ctx.float_or("alpha", 1.0) }), 1))
 }
 
 #[cfg(test)]

@@ -30,12 +30,7 @@ impl Pointwise for LeakyRelu {
 
 /// Build from a node: reads `alpha`.
 pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
-    Ok(Built::first(
-        Unary(LeakyRelu {
-            alpha: ctx.float_or("alpha", 0.01),
-        }),
-        1,
-    ))
+    Ok(Built::first(Unary(LeakyRelu { alpha: ctx.float_or("alpha", 0.01) }), 1))
 }
 
 #[cfg(test)]

@@ -43,10 +43,7 @@ impl<P: Pointwise> Op for Unary<P> {
 
     fn backward(&self, args: &BackwardArgs) -> OpResult<Vec<Option<Tensor>>> {
         let mut g = args.grad.clone();
-        Zip::from(&mut g)
-            .and(args.inputs[0])
-            .and(args.output)
-            .for_each(|g, &x, &y| *g *= self.0.slope(x, y));
+        Zip::from(&mut g).and(args.inputs[0]).and(args.output).for_each(|g, &x, &y| *g *= self.0.slope(x, y));
         Ok(vec![Some(g)])
     }
 
