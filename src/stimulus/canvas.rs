@@ -78,6 +78,15 @@ pub fn column_coverage(width: usize, left: f64, right: f64) -> Vec<f32> {
         .collect()
 }
 
+/// Draw a full-height vertical bar centred at `centre` (pixels from the left edge) into one
+/// frame, with area-sampled edges.
+pub fn draw_vertical_bar(mut frame: ndarray::ArrayViewMut2<f32>, centre: f64, width: f64, contrast: f32) {
+    let cover = column_coverage(frame.ncols(), centre - width / 2.0, centre + width / 2.0);
+    for mut row in frame.rows_mut() {
+        row.iter_mut().zip(&cover).for_each(|(px, k)| *px = contrast * k);
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

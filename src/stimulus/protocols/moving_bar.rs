@@ -7,7 +7,7 @@
 use super::reversing_bar::bar_centre;
 use super::{Measured, Observed, Protocol};
 use crate::response::measure::{json, peak};
-use crate::stimulus::canvas::column_coverage;
+use crate::stimulus::canvas::draw_vertical_bar;
 use crate::stimulus::{Canvas, Drawn, Event, Params, Spec, Window};
 use crate::{Error, Result};
 use serde_json::json;
@@ -71,10 +71,7 @@ impl Protocol for MovingBar {
         for t in 0..total {
             let x = bar_centre(-width / 2.0, v, f64::INFINITY, t as f64);
             let x = if leftward { c.width as f64 - x } else { x };
-            let cover = column_coverage(c.width, x - width / 2.0, x + width / 2.0);
-            for mut row in movie.index_axis_mut(ndarray::Axis(0), t).rows_mut() {
-                row.iter_mut().zip(&cover).for_each(|(px, k)| *px = contrast * k);
-            }
+            draw_vertical_bar(movie.index_axis_mut(ndarray::Axis(0), t), x, width, contrast);
         }
         Ok(Drawn {
             movie,

@@ -4,7 +4,7 @@
 
 use super::{Measured, Observed, Protocol};
 use crate::response::measure::{json, mean};
-use crate::stimulus::canvas::column_coverage;
+use crate::stimulus::canvas::draw_vertical_bar;
 use crate::stimulus::{Canvas, Drawn, Event, Params, Spec, Window};
 use crate::{Error, Result};
 use serde_json::json;
@@ -99,10 +99,7 @@ impl Protocol for ReversingBar {
         let mut movie = c.blank(total);
         for t in 0..total {
             let centre = bar_centre(x0, v, reversal, t as f64);
-            let cover = column_coverage(c.width, centre - width / 2.0, centre + width / 2.0);
-            for mut row in movie.index_axis_mut(ndarray::Axis(0), t).rows_mut() {
-                row.iter_mut().zip(&cover).for_each(|(px, k)| *px = contrast * k);
-            }
+            draw_vertical_bar(movie.index_axis_mut(ndarray::Axis(0), t), centre, width, contrast);
         }
         let r = reversal as usize;
         Ok(Drawn {
