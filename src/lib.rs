@@ -5,6 +5,7 @@
 //! Pipeline, one module per stage: [`model`] (intake) → [`engine`] (differentiable
 //! interpreter) → stimuli → responses → attribution → reduction → report → studies.
 
+pub mod attribution;
 pub mod cli;
 pub mod engine;
 pub mod error;

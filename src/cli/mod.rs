@@ -1,6 +1,7 @@
 //! The command line: argument definitions (clap) and one small function per command. Each
 //! command turns its arguments into library calls and prints where it wrote its results.
 
+mod attribute;
 mod inspect;
 mod respond;
 mod stimulus;
@@ -27,6 +28,8 @@ pub enum Command {
     Stimulus(stimulus::StimulusArgs),
     /// Run a model on a stimulus: rates per cell and the protocol's metrics.
     Respond(respond::RespondArgs),
+    /// Attribute a response to hidden units (layer conductance) and input pixels (integrated gradients).
+    Attribute(attribute::AttributeArgs),
 }
 
 /// Options every working command takes.
@@ -100,6 +103,10 @@ pub fn run(cli: Cli) -> Result<()> {
         Command::Respond(a) => {
             a.common.apply()?;
             respond::run(&a)
+        }
+        Command::Attribute(a) => {
+            a.common.apply()?;
+            attribute::run(&a)
         }
     }
 }

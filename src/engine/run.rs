@@ -69,10 +69,17 @@ pub struct Tape<'g> {
 
 impl<'g> Tape<'g> {
     /// The value `id` as computed in this pass (parameters come from the graph).
+    ///
+    /// Panics if the pass did not compute it (see [`Tape::try_value`]).
     pub fn value(&self, id: ValueId) -> &Tensor {
+        self.try_value(id).unwrap_or_else(|| panic!("'{}' was not computed in this pass", self.graph.values[id].name))
+    }
+
+    /// The value `id`, or `None` when this pass skipped it (see [`Graph::forward_from`]).
+    pub fn try_value(&self, id: ValueId) -> Option<&Tensor> {
         match &self.graph.values[id].source {
-            Source::Param(t) => t,
-            _ => self.values[id].as_ref().expect("every non-parameter value is on the tape"),
+            Source::Param(t) => Some(t),
+            _ => self.values[id].as_ref(),
         }
     }
 
@@ -120,7 +127,18 @@ impl<'g> Tape<'g> {
             for o in self.overrides.iter().filter(|o| o.value == node.output) {
                 o.block(&mut grad);
             }
-            let inputs: Vec<&Tensor> = node.inputs.iter().map(|&i| self.value(i)).collect();
+            let inputs: Vec<&Tensor> = node
+                .inputs
+                .iter()
+                .map(|&i| {
+                    self.try_value(i).ok_or_else(|| {
+                        Error::Usage(format!(
+                            "a gradient through '{}' needs '{}', which this pass did not compute",
+                            node.name, g.values[i].name
+                        ))
+                    })
+                })
+                .collect::<Result<_>>()?;
             let args = BackwardArgs { inputs: &inputs, output: self.value(node.output), grad: &grad, wants: &wants };
             let input_grads = node.op.backward(&args).map_err(|e| node_error(node, e.0))?;
             for ((&i, gi), &w) in node.inputs.iter().zip(input_grads).zip(&wants) {
@@ -131,8 +149,12 @@ impl<'g> Tape<'g> {
         }
         Ok(wanted
             .iter()
-            .map(|&w| grads[w].clone().unwrap_or_else(|| Tensor::zeros(IxDyn(self.value(w).shape()))))
-            .collect())
+            .map(|&w| match (grads[w].clone(), self.try_value(w)) {
+                (Some(gw), _) => Ok(gw),
+                (None, Some(v)) => Ok(Tensor::zeros(IxDyn(v.shape()))),
+                (None, None) => Err(Error::Usage(format!("'{}' was not computed in this pass", g.values[w].name))),
+            })
+            .collect::<Result<_>>()?)
     }
 }
 
@@ -160,26 +182,22 @@ impl Graph {
                 input.shape()
             )));
         }
-        let mut values: Vec<Option<Tensor>> = vec![None; self.values.len()];
-        values[self.input] = Some(input);
-        for node in &self.nodes {
-            let out = {
-                let inputs: Vec<&Tensor> = node
-                    .inputs
-                    .iter()
-                    .map(|&i| match &self.values[i].source {
-                        Source::Param(t) => t,
-                        _ => values[i].as_ref().expect("topological order"),
-                    })
-                    .collect();
-                node.op.forward(&inputs).map_err(|e| node_error(node, e.0))?
-            };
-            let mut out = out;
-            for o in overrides.iter().filter(|o| o.value == node.output) {
-                o.apply(&mut out, self)?;
-            }
-            values[node.output] = Some(out);
-        }
+        self.forward_from(vec![(self.input, input)], overrides)
+    }
+
+    /// Run only what the outputs need, starting from given values (e.g. a hidden layer computed
+    /// elsewhere): nodes whose outputs are given, and nodes only they depend on, are skipped.
+    pub fn forward_from(&self, given: Vec<(ValueId, Tensor)>, overrides: &[Override]) -> Result<Tape<'_>> {
+        self.forward_to(given, &self.outputs, overrides)
+    }
+
+    /// As [`Graph::forward_from`], computing only what `targets` need (e.g. one hidden layer).
+    pub fn forward_to(
+        &self,
+        given: Vec<(ValueId, Tensor)>,
+        targets: &[ValueId],
+        overrides: &[Override],
+    ) -> Result<Tape<'_>> {
         for o in overrides {
             if !matches!(self.values[o.value].source, Source::Node(_)) {
                 return Err(Error::Usage(format!(
@@ -187,6 +205,41 @@ impl Graph {
                     self.values[o.value].name
                 )));
             }
+        }
+        let mut values: Vec<Option<Tensor>> = vec![None; self.values.len()];
+        for (id, t) in given {
+            values[id] = Some(t);
+        }
+        let mut required = vec![false; self.values.len()];
+        for &o in targets {
+            required[o] = true;
+        }
+        for node in self.nodes.iter().rev() {
+            if required[node.output] && values[node.output].is_none() {
+                for &i in &node.inputs {
+                    required[i] = true;
+                }
+            }
+        }
+        for node in &self.nodes {
+            if !required[node.output] || values[node.output].is_some() {
+                continue;
+            }
+            let inputs: Vec<&Tensor> = node
+                .inputs
+                .iter()
+                .map(|&i| match &self.values[i].source {
+                    Source::Param(t) => Ok(t),
+                    _ => values[i].as_ref().ok_or_else(|| {
+                        Error::Usage(format!("'{}' is needed but was neither given nor computed", self.values[i].name))
+                    }),
+                })
+                .collect::<Result<_>>()?;
+            let mut out = node.op.forward(&inputs).map_err(|e| node_error(node, e.0))?;
+            for o in overrides.iter().filter(|o| o.value == node.output) {
+                o.apply(&mut out, self)?;
+            }
+            values[node.output] = Some(out);
         }
         Ok(Tape { graph: self, values, overrides: overrides.to_vec() })
     }

@@ -19,10 +19,15 @@ use rayon::prelude::*;
 
 /// Model windows `[n, L, H, W]` ending at frames `first .. first + n` of `movie`.
 fn windows(movie: &Array3<f32>, lags: usize, first: usize, n: usize) -> Array4<f32> {
+    windows_at(movie, lags, &(first..first + n).collect::<Vec<_>>())
+}
+
+/// Model windows `[ends.len(), L, H, W]`, one ending at each frame of `ends`; frames before the
+/// movie are mean luminance.
+pub fn windows_at(movie: &Array3<f32>, lags: usize, ends: &[usize]) -> Array4<f32> {
     let (_, h, w) = movie.dim();
-    let mut out = Array4::zeros((n, lags, h, w));
-    for i in 0..n {
-        let t = first + i;
+    let mut out = Array4::zeros((ends.len(), lags, h, w));
+    for (i, &t) in ends.iter().enumerate() {
         for l in 0..lags {
             // Lag l of the window ending at t is frame t - (lags - 1) + l; earlier is gray.
             if let Some(f) = (t + l + 1).checked_sub(lags) {

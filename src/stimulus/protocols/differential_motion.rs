@@ -99,6 +99,10 @@ impl Protocol for DifferentialMotion {
         Ok(Drawn { movie, events, windows })
     }
 
+    fn target_window(&self) -> &'static str {
+        "differential"
+    }
+
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let avg = |name: &str, cell: usize| {
             let ws: Vec<_> = obs.meta.windows_named(name).collect();

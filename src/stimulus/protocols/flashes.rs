@@ -83,6 +83,10 @@ impl Protocol for Flashes {
         Ok(Drawn { movie, events, windows })
     }
 
+    fn target_window(&self) -> &'static str {
+        "on_response"
+    }
+
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let m = obs.meta;
         let base_w = m.windows_named("baseline").next().cloned();

@@ -93,6 +93,10 @@ impl Protocol for Gratings {
         Ok(Drawn { movie, events, windows })
     }
 
+    fn target_window(&self) -> &'static str {
+        "grating"
+    }
+
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let m = obs.meta;
         let cells: Vec<_> = (0..obs.rates.ncols())

@@ -52,6 +52,8 @@ pub trait Protocol: Sync {
     fn draw(&self, params: &super::Params, canvas: &Canvas, seed: u64) -> Result<Drawn>;
     /// Measure the protocol's effect in the model's rates.
     fn measure(&self, obs: &Observed) -> Result<Measured>;
+    /// The analysis window (by name) whose frames make the default attribution target.
+    fn target_window(&self) -> &'static str;
 }
 
 /// Every protocol, in the order `--list` shows them.

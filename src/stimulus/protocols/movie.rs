@@ -81,6 +81,10 @@ impl Protocol for UserMovie {
         })
     }
 
+    fn target_window(&self) -> &'static str {
+        "movie"
+    }
+
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let w = obs
             .meta

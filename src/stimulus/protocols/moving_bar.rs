@@ -80,6 +80,10 @@ impl Protocol for MovingBar {
         })
     }
 
+    fn target_window(&self) -> &'static str {
+        "sweep"
+    }
+
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let m = obs.meta;
         let (Some(speed), Some(width_um)) = (m.number("speed_um_s"), m.number("bar_width_um")) else {

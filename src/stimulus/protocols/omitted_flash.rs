@@ -138,6 +138,10 @@ impl Protocol for OmittedFlash {
         Ok(Drawn { movie, events, windows })
     }
 
+    fn target_window(&self) -> &'static str {
+        "after_omission"
+    }
+
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let m = obs.meta;
         let rate = m.frame_rate_hz;

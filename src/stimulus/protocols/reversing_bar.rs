@@ -112,6 +112,10 @@ impl Protocol for ReversingBar {
         })
     }
 
+    fn target_window(&self) -> &'static str {
+        "reversal"
+    }
+
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let w = |name: &str| obs.meta.windows_named(name).next().cloned();
         let (Some(rev), Some(smooth)) = (w("reversal"), w("smooth")) else {

@@ -64,6 +64,10 @@ impl Protocol for Steps {
         Ok(Drawn { movie, events, windows })
     }
 
+    fn target_window(&self) -> &'static str {
+        "transient"
+    }
+
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let m = obs.meta;
         let base_w = m.windows_named("baseline").next().cloned();

@@ -136,6 +136,10 @@ impl Protocol for WhiteNoise {
         })
     }
 
+    fn target_window(&self) -> &'static str {
+        "noise"
+    }
+
     fn measure(&self, obs: &Observed) -> Result<Measured> {
         let w = obs
             .meta

@@ -1,0 +1,215 @@
+//! Path attribution along the straight line from a baseline to the stimulus: input integrated
+//! gradients (Sundararajan, Taly & Yan 2017, ICML) and layer conductance (Dhamdhere, Sundararajan
+//! & Yan 2019, ICLR), on every window of the target at once.
+//!
+//! Conductance of unit j: C_j = integral of dF/dy_j * dy_j/da da. With the midpoint rule it is the
+//! sum over steps of the gradient at the step's midpoint times the exact change of y_j across the
+//! step, so sum_j C_j telescopes to F(x) - F(x') up to the quadrature error of each step. With
+//! Gauss-Legendre, dy_j/da is exact when y = f(z) with z in the affine prefix:
+//! dy/da = f'(z(a)) (z(x) - z(x')).
+
+use super::quadrature::Rule;
+use crate::engine::batch::{chunk_len, DEFAULT_BUDGET_BYTES};
+use crate::engine::{Graph, ValueId};
+use crate::{Error, Result, Tensor};
+use ndarray::{Axis, IxDyn, Zip};
+use rayon::prelude::*;
+
+/// One path integral to compute.
+pub struct PathJob<'a> {
+    /// The model graph.
+    pub graph: &'a Graph,
+    /// Model inputs for the stimulus windows `[N, ...]`.
+    pub x: &'a Tensor,
+    /// Model inputs for the baseline windows, same shape.
+    pub x0: &'a Tensor,
+    /// dF/d(output) for one window: F = sum over windows of sum(seed * output).
+    pub seed: &'a Tensor,
+    /// Layers (hidden values) whose conductance is wanted.
+    pub layers: &'a [ValueId],
+    /// The end of the affine prefix, if any.
+    pub prefix_end: Option<ValueId>,
+    /// Quadrature rule.
+    pub rule: Rule,
+    /// Number of steps (midpoint) or nodes (Gauss-Legendre).
+    pub steps: usize,
+    /// Whether to compute input integrated gradients.
+    pub input_ig: bool,
+}
+
+/// The result of one path integral.
+pub struct PathResult {
+    /// F at the stimulus, per window.
+    pub f_x: Vec<f64>,
+    /// F at the baseline, per window.
+    pub f_x0: Vec<f64>,
+    /// Per layer: conductance per window and position, `[N, C, spatial...]` (f64 sums).
+    pub conductance: Vec<ndarray::ArrayD<f64>>,
+    /// Input integrated gradients, model-input shaped, when asked for.
+    pub input_ig: Option<Tensor>,
+}
+
+/// Repeat the seed for every sample of a batch of `n` windows.
+fn seeds(seed: &Tensor, n: usize) -> Tensor {
+    let mut shape = seed.shape().to_vec();
+    shape[0] = n;
+    seed.broadcast(IxDyn(&shape)).map_or_else(|| seed.clone(), |v| v.to_owned())
+}
+
+fn weighted_output(out: &Tensor, seed: &Tensor) -> Vec<f64> {
+    out.axis_iter(Axis(0))
+        .zip(seed.axis_iter(Axis(0)).cycle())
+        .map(|(o, s)| o.iter().zip(s.iter()).map(|(a, b)| *a as f64 * *b as f64).sum())
+        .collect()
+}
+
+/// Values of `start` along the path at fractions `alphas`, stacked on the batch axis.
+fn along(z0: &Tensor, dz: &Tensor, alphas: &[f64], windows: std::ops::Range<usize>) -> Tensor {
+    let parts: Vec<Tensor> = alphas
+        .iter()
+        .map(|&a| {
+            let (b0, bd) =
+                (z0.slice_axis(Axis(0), windows.clone().into()), dz.slice_axis(Axis(0), windows.clone().into()));
+            Zip::from(&b0).and(&bd).map_collect(|&p, &d| p + a as f32 * d)
+        })
+        .collect();
+    let views: Vec<_> = parts.iter().map(|p| p.view()).collect();
+    ndarray::concatenate(Axis(0), &views).expect("equal shapes")
+}
+
+/// Sum consecutive blocks of `n` samples (one block per path point), weighted.
+fn fold_blocks(t: &Tensor, n: usize, weights: &[f64]) -> ndarray::ArrayD<f64> {
+    let mut shape = t.shape().to_vec();
+    shape[0] = n;
+    let mut acc = ndarray::ArrayD::<f64>::zeros(IxDyn(&shape));
+    for (k, w) in weights.iter().enumerate() {
+        let block = t.slice_axis(Axis(0), (k * n..(k + 1) * n).into());
+        Zip::from(&mut acc).and(&block).for_each(|a, &v| *a += w * v as f64);
+    }
+    acc
+}
+
+/// Run the path integral.
+pub fn integrate(job: &PathJob) -> Result<PathResult> {
+    let g = job.graph;
+    let n = job.x.shape()[0];
+    let out = g.outputs[0];
+    let start = job.prefix_end.unwrap_or(g.input);
+    // Endpoints: full forward passes give F, the prefix values and (for x) the tape for the
+    // final input-gradient step through the prefix.
+    let tape_x = g.forward(job.x.clone(), &[])?;
+    let tape_x0 = g.forward(job.x0.clone(), &[])?;
+    let f_x = weighted_output(tape_x.value(out), job.seed);
+    let f_x0 = weighted_output(tape_x0.value(out), job.seed);
+    let z1 = tape_x.value(start).clone();
+    let z0 = tape_x0.value(start).clone();
+    let dz = &z1 - &z0;
+    drop(tape_x0);
+
+    if job.rule == Rule::GaussLegendre {
+        for &l in job.layers {
+            let direct =
+                g.producer(l).is_some_and(|p| p.inputs.len() == 1 && p.inputs[0] == start && p.op.is_nonlinearity());
+            if !direct {
+                return Err(Error::Usage(format!(
+                    "Gauss-Legendre conductance needs the layer to be a nonlinearity applied directly to the end of the \
+                     affine prefix; '{}' is not. Use --quadrature midpoint for this layer",
+                    g.values[l].name
+                )));
+            }
+        }
+    }
+
+    // Work items: one path point (a midpoint step with its two boundaries, or a GL node) for a
+    // range of windows, sized to the memory budget.
+    let points = job.rule.nodes(job.steps);
+    let per_sample = g.bytes_per_sample().max(1);
+    let windows_per_item = chunk_len(per_sample * 3, DEFAULT_BUDGET_BYTES).clamp(1, n);
+    let items: Vec<(usize, std::ops::Range<usize>)> = (0..points.len())
+        .flat_map(|k| (0..n).step_by(windows_per_item).map(move |s| (k, s..(s + windows_per_item).min(n))))
+        .collect();
+    let h = 1.0 / job.steps as f64;
+
+    type Partial = (std::ops::Range<usize>, Vec<ndarray::ArrayD<f64>>, Option<ndarray::ArrayD<f64>>);
+    let partials: Vec<Partial> = items
+        .par_iter()
+        .map(|(k, range)| -> Result<Partial> {
+            let (alpha, weight) = points[*k];
+            let m = range.len();
+            let z_mid = along(&z0, &dz, &[alpha], range.clone());
+            let tape = g.forward_from(vec![(start, z_mid)], &[])?;
+            let mut wanted: Vec<ValueId> = job.layers.to_vec();
+            wanted.push(start);
+            let grads = tape.gradients(&[(out, seeds(job.seed, m))], &wanted)?;
+            let mut cond = Vec::with_capacity(job.layers.len());
+            for (li, &l) in job.layers.iter().enumerate() {
+                let dy = match job.rule {
+                    Rule::Midpoint => {
+                        // Exact change of the layer across the step [alpha - h/2, alpha + h/2].
+                        let ends = along(&z0, &dz, &[alpha - h / 2.0, alpha + h / 2.0], range.clone());
+                        let t = g.forward_to(vec![(start, ends)], &[l], &[])?;
+                        let y = t.try_value(l).ok_or_else(|| {
+                            Error::Usage(format!("layer '{}' is not downstream of the input", g.values[l].name))
+                        })?;
+                        &y.slice_axis(Axis(0), (m..2 * m).into()) - &y.slice_axis(Axis(0), (0..m).into())
+                    }
+                    Rule::GaussLegendre => {
+                        let p = g.producer(l).expect("checked above");
+                        let dz_r = dz.slice_axis(Axis(0), range.clone().into()).to_owned();
+                        let zin = tape.value(start);
+                        let args = crate::engine::ops::BackwardArgs {
+                            inputs: &[zin],
+                            output: tape.value(l),
+                            grad: &dz_r,
+                            wants: &[true],
+                        };
+                        let d = p.op.backward(&args).map_err(|e| Error::Usage(e.0))?.remove(0).expect("wanted");
+                        d.mapv(|v| v * weight as f32)
+                    }
+                };
+                cond.push(Zip::from(&grads[li]).and(&dy).map_collect(|&gv, &d| gv as f64 * d as f64));
+            }
+            let gz = job.input_ig.then(|| fold_blocks(&grads[job.layers.len()], m, &[weight]));
+            Ok((range.clone(), cond, gz))
+        })
+        .collect::<Result<_>>()?;
+
+    // Reduce the partial sums into per-window arrays.
+    let mut conductance: Vec<ndarray::ArrayD<f64>> = job
+        .layers
+        .iter()
+        .map(|&l| {
+            let mut shape = g.values[l].shape.clone();
+            shape[0] = n;
+            ndarray::ArrayD::zeros(IxDyn(&shape))
+        })
+        .collect();
+    let mut gz_sum = job.input_ig.then(|| {
+        let mut shape = z0.shape().to_vec();
+        shape[0] = n;
+        ndarray::ArrayD::<f64>::zeros(IxDyn(&shape))
+    });
+    for (range, cond, gz) in partials {
+        for (acc, c) in conductance.iter_mut().zip(cond) {
+            let mut part = acc.slice_axis_mut(Axis(0), range.clone().into());
+            part += &c;
+        }
+        if let (Some(total), Some(gz)) = (gz_sum.as_mut(), gz) {
+            let mut part = total.slice_axis_mut(Axis(0), range.clone().into());
+            part += &gz;
+        }
+    }
+
+    // Input IG: (x - x') * J_prefix^T (sum_k w_k dF/dz(a_k)); the prefix is affine, so one
+    // backward pass through it serves every step.
+    let input_ig = match gz_sum {
+        None => None,
+        Some(gz) => {
+            let gz = gz.mapv(|v| v as f32);
+            let gx = if start == g.input { gz } else { tape_x.gradients(&[(start, gz)], &[g.input])?.remove(0) };
+            let dx = job.x - job.x0;
+            Some(&dx * &gx)
+        }
+    };
+    Ok(PathResult { f_x, f_x0, conductance, input_ig })
+}

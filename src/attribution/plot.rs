@@ -1,0 +1,95 @@
+//! Attribution plots: the unit x time conductance heatmap and the ranked bar chart.
+
+use ndarray::Array2;
+use plotters::prelude::*;
+
+fn diverging(v: f64, scale: f64) -> RGBColor {
+    let t = (v / scale.max(1e-30)).clamp(-1.0, 1.0);
+    let fade = |c: u8| (255.0 - (255.0 - c as f64) * t.abs()) as u8;
+    if t >= 0.0 {
+        RGBColor(fade(178), fade(24), fade(43))
+    } else {
+        RGBColor(fade(33), fade(102), fade(172))
+    }
+}
+
+/// Units (rows, labelled) x frames `[first, last)` heatmap; red excitatory, blue inhibitory.
+pub fn heatmap_svg(rows: &[(String, Vec<f32>)], first: usize, last: usize, frame_ms: f64) -> Result<String, String> {
+    let mut svg = String::new();
+    {
+        let height = 80 + 22 * rows.len() as u32;
+        let root = SVGBackend::with_string(&mut svg, (900, height)).into_drawing_area();
+        root.fill(&WHITE).map_err(|e| e.to_string())?;
+        let scale = rows.iter().flat_map(|(_, v)| v[first..last].iter()).fold(0f64, |m, v| m.max(v.abs() as f64));
+        let mut chart = ChartBuilder::on(&root)
+            .caption("conductance per unit and time (red: drives the target up, blue: down)", ("sans-serif", 15))
+            .margin(10)
+            .x_label_area_size(30)
+            .y_label_area_size(120)
+            .build_cartesian_2d(first as f64 * frame_ms..last as f64 * frame_ms, 0f64..rows.len() as f64)
+            .map_err(|e| e.to_string())?;
+        let labels: Vec<String> = rows.iter().map(|(n, _)| n.clone()).collect();
+        chart
+            .configure_mesh()
+            .disable_mesh()
+            .x_desc("time (ms)")
+            .y_labels(rows.len())
+            .y_label_formatter(&|y| labels.get(rows.len().saturating_sub(1 + *y as usize)).cloned().unwrap_or_default())
+            .draw()
+            .map_err(|e| e.to_string())?;
+        for (r, (_, v)) in rows.iter().enumerate() {
+            let y = (rows.len() - 1 - r) as f64;
+            chart
+                .draw_series((first..last).map(|t| {
+                    let x0 = t as f64 * frame_ms;
+                    Rectangle::new([(x0, y), (x0 + frame_ms, y + 1.0)], diverging(v[t] as f64, scale).filled())
+                }))
+                .map_err(|e| e.to_string())?;
+        }
+        root.present().map_err(|e| e.to_string())?;
+    }
+    Ok(svg)
+}
+
+/// Units ranked by |conductance|, signed bars.
+pub fn ranking_svg(units: &[(String, f64)]) -> Result<String, String> {
+    let mut svg = String::new();
+    {
+        let n = units.len().max(1);
+        let root = SVGBackend::with_string(&mut svg, (700, 80 + 20 * n as u32)).into_drawing_area();
+        root.fill(&WHITE).map_err(|e| e.to_string())?;
+        let m = units.iter().fold(1e-12f64, |a, (_, v)| a.max(v.abs())) * 1.1;
+        let labels: Vec<String> = units.iter().map(|(l, _)| l.clone()).collect();
+        let mut chart = ChartBuilder::on(&root)
+            .caption("units ranked by |conductance|", ("sans-serif", 15))
+            .margin(10)
+            .x_label_area_size(30)
+            .y_label_area_size(120)
+            .build_cartesian_2d(-m..m, 0f64..n as f64)
+            .map_err(|e| e.to_string())?;
+        chart
+            .configure_mesh()
+            .disable_mesh()
+            .x_desc("conductance (target units)")
+            .y_labels(n)
+            .y_label_formatter(&|y| labels.get(n.saturating_sub(1 + *y as usize)).cloned().unwrap_or_default())
+            .draw()
+            .map_err(|e| e.to_string())?;
+        chart
+            .draw_series(units.iter().enumerate().map(|(i, (_, v))| {
+                let y = (n - 1 - i) as f64;
+                Rectangle::new([(0.0, y + 0.15), (*v, y + 0.85)], diverging(*v, m).filled())
+            }))
+            .map_err(|e| e.to_string())?;
+        root.present().map_err(|e| e.to_string())?;
+    }
+    Ok(svg)
+}
+
+/// Rows for the heatmap from per-layer `[channels, frames]` arrays.
+pub fn rows_of(layers: &[(String, &Array2<f32>)]) -> Vec<(String, Vec<f32>)> {
+    layers
+        .iter()
+        .flat_map(|(name, a)| a.outer_iter().enumerate().map(move |(c, r)| (format!("{name}:{c}"), r.to_vec())))
+        .collect()
+}
