@@ -139,6 +139,46 @@ def pytorch_style():
     x = RNG.standard_normal((3, L, H, W)).astype(np.float32)
     write("pytorch_style", graph, 13, x, (to_hidden, from_hidden), "relu1", 2,
           "PyTorch-export shape: Conv+BatchNorm+Relu, Shape->Gather->Unsqueeze->Concat->Reshape flatten, Gemm(transB)+Softplus, symbolic batch")
+    attribution_reference("pytorch_style", x, to_hidden, from_hidden, cell=2, steps=8)
+
+
+def attribution_reference(name, x_np, to_hidden, from_hidden, cell, steps):
+    """Layer conductance (Dhamdhere et al. 2019) at the hidden layer and input integrated
+    gradients (Sundararajan et al. 2017) on the straight path from a zero (gray) baseline, with
+    the midpoint rule: C = sum_k dF/dy(mid_k) * (y(a_k+1) - y(a_k)); IG = x * mean_k dF/dx(mid_k).
+    F = sum over the windows (batch) of output[:, cell]."""
+    x = jnp.asarray(x_np, dtype=jnp.float64)
+    target = lambda out: jnp.sum(out[:, cell])
+    f_of_y = lambda y: target(from_hidden(y))
+    f_of_x = lambda xx: target(from_hidden(to_hidden(xx)))
+    grad_y = jax.grad(f_of_y)
+    grad_x = jax.grad(f_of_x)
+    cond = jnp.zeros(to_hidden(x).shape)
+    ig = jnp.zeros(x.shape)
+    for k in range(steps):
+        a0, a1, am = k / steps, (k + 1) / steps, (k + 0.5) / steps
+        cond = cond + grad_y(to_hidden(am * x)) * (to_hidden(a1 * x) - to_hidden(a0 * x))
+        ig = ig + grad_x(am * x) / steps
+    ig = ig * x
+    per_channel = np.asarray(jnp.sum(cond, axis=(0, 2, 3)))
+    ref = {
+        "model": name + ".onnx",
+        "generated_by": "scripts/make_reference_models.py",
+        "libraries": {"jax": jax.__version__, "numpy": np.__version__},
+        "method": "midpoint rule, zero baseline, target = sum over windows of output[:, cell]",
+        "cell": cell,
+        "steps": steps,
+        "input_shape": list(x_np.shape),
+        "input": x_np.ravel().tolist(),
+        "conductance_per_channel": per_channel.tolist(),
+        "conductance_per_window_channel": np.asarray(jnp.sum(cond, axis=(2, 3))).tolist(),
+        "input_ig": np.asarray(ig).ravel().tolist(),
+        "f_input": float(f_of_x(x)),
+        "f_baseline": float(f_of_x(jnp.zeros_like(x))),
+    }
+    with open(os.path.join(ROOT, "reference", name + "_attribution.json"), "w") as f:
+        json.dump(ref, f)
+    print(f"{name}: conductance reference, sum {per_channel.sum():.6f} vs dF {ref['f_input'] - ref['f_baseline']:.6f}")
 
 
 def lags_last_fixed_batch():
