@@ -1,0 +1,81 @@
+//! Attribution benchmark, the reference job: the reference-size model, a 139-frame binary
+//! white-noise movie (100 windows of 40 lags), gray baseline, cell 0, target summed over all
+//! 100 windows, conductance at the first hidden layer with 64 midpoint steps; then the same with
+//! input integrated gradients.
+//!
+//!     cargo bench --bench attribution     # figures go to docs/performance.md by hand
+
+#[path = "../tests/common/mod.rs"]
+mod common;
+#[path = "support/reference_model.rs"]
+mod reference_model;
+
+use std::time::{Duration, Instant};
+use sufficit::attribution::{attribute, resolve_layers, Baseline, Request, Rule, Steps};
+use sufficit::model::{LoadOptions, Model};
+use sufficit::stimulus::{protocols, Canvas, Params, Stimulus};
+
+const REPEATS: usize = 5;
+
+fn peak_mib() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| s.lines().find(|l| l.starts_with("VmHWM:")).map(String::from))
+        .and_then(|l| l.split_whitespace().nth(1).and_then(|v| v.parse::<f64>().ok()))
+        .map_or(f64::NAN, |kb| kb / 1024.0)
+}
+
+fn main() {
+    let dir = std::env::temp_dir().join(format!("sufficit-bench-attr-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).expect("temp dir");
+    let path = dir.join("reference.onnx");
+    reference_model::write_reference_model(&path);
+    let model = Model::load(&path, &LoadOptions::default()).expect("load");
+    let canvas = Canvas { height: 50, width: 50, lags: 40, frame_rate_hz: 100.0, pixel_um: 50.0 };
+    let p = protocols::find("white-noise").expect("white-noise");
+    let params =
+        Params::parse(p.name(), p.specs(), &["duration_ms=990".into(), "checker_um=50".into()]).expect("params");
+    let stim = Stimulus::assemble(p.name(), &params, &canvas, 1, p.draw(&params, &canvas, 1).expect("draw"));
+    // 40 gray history frames + 99 noise frames = 139; the 100 windows end at frames 39..139.
+    assert_eq!(stim.meta.frames, 139);
+    let frames: Vec<usize> = (39..139).collect();
+    // Work of the direct method, in multiply-adds per window: forward through both convolutions
+    // and the readout, backward to layer1 (conductance) or to the input (IG).
+    let conv1 = (8 * 36 * 36 * 40 * 15 * 15) as f64;
+    let conv2 = (8 * 26 * 26 * 8 * 11 * 11) as f64;
+    let dense = (4 * 8 * 26 * 26) as f64;
+    let forward = conv1 + conv2 + dense;
+    for (label, input_ig, backward) in
+        [("conductance", false, conv2 + dense), ("conductance + input IG", true, conv2 + dense + conv1)]
+    {
+        let req = Request {
+            cells: vec![(0, 1.0)],
+            frames: frames.clone(),
+            layers: resolve_layers(&model, "layer1").expect("layer1"),
+            baseline: Baseline::Gray,
+            rule: Rule::Midpoint,
+            steps: Steps::Fixed(64),
+            input_ig,
+            seed: 1,
+        };
+        let mut times: Vec<Duration> = Vec::new();
+        let mut residual = 0.0;
+        for _ in 0..REPEATS {
+            let t = Instant::now();
+            let a = attribute(&model, &stim.movie, &req).expect("attribute");
+            times.push(t.elapsed());
+            residual = a.layers[0].residual;
+        }
+        times.sort();
+        let median = times[REPEATS / 2].as_secs_f64();
+        let nominal = 2.0 * 64.0 * 100.0 * (forward + backward);
+        println!(
+            "{label:<24} median {median:.3} s (best {:.3} s)  direct-method work {:.0} GFLOP = {:.0} GFLOP/s  residual {residual:.1e}  peak memory {:.0} MiB",
+            times[0].as_secs_f64(),
+            nominal / 1e9,
+            nominal / median / 1e9,
+            peak_mib()
+        );
+    }
+    let _ = std::fs::remove_dir_all(&dir);
+}
