@@ -146,15 +146,11 @@ fn residual(total: f64, df: f64) -> f64 {
     }
 }
 
+/// F(x), mean F(x'), per-layer conductance sums and input IG of one fixed-step attribution.
+type Once = (f64, f64, Vec<ndarray::ArrayD<f64>>, Option<Tensor>);
+
 /// One attribution with a fixed step count, averaged over the baseline movies.
-fn once(
-    model: &Model,
-    x: &Tensor,
-    baselines: &[Tensor],
-    seed: &Tensor,
-    req: &Request,
-    steps: usize,
-) -> Result<(f64, f64, Vec<ndarray::ArrayD<f64>>, Option<Tensor>)> {
+fn once(model: &Model, x: &Tensor, baselines: &[Tensor], seed: &Tensor, req: &Request, steps: usize) -> Result<Once> {
     let prefix_end = frontier(&model.graph);
     let k = baselines.len() as f64;
     let (mut fx, mut fx0) = (0.0, 0.0);

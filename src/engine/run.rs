@@ -147,14 +147,14 @@ impl<'g> Tape<'g> {
                 }
             }
         }
-        Ok(wanted
+        wanted
             .iter()
             .map(|&w| match (grads[w].clone(), self.try_value(w)) {
                 (Some(gw), _) => Ok(gw),
                 (None, Some(v)) => Ok(Tensor::zeros(IxDyn(v.shape()))),
                 (None, None) => Err(Error::Usage(format!("'{}' was not computed in this pass", g.values[w].name))),
             })
-            .collect::<Result<_>>()?)
+            .collect()
     }
 }
 
