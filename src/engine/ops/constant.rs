@@ -78,7 +78,12 @@ pub fn build_of_shape(ctx: &BuildCtx) -> OpResult<Built> {
 
 #[cfg(test)]
 mod tests {
-    use crate::engine::ops::testing::{check_graph, ints_init, node_io};
+    use crate::engine::ops::testing::{check_graph, ints_init, node_io, Attr};
+
+    #[test]
+    fn constant_matches_tract() {
+        check_graph(node_io("Constant", &[], &[("value_ints", Attr::Is(vec![3, 1, 4]))]), &[], vec![]);
+    }
 
     #[test]
     fn constant_of_shape_matches_tract() {

@@ -65,12 +65,23 @@ pub fn build_cast(ctx: &BuildCtx) -> OpResult<Built> {
 
 #[cfg(test)]
 mod tests {
-    use crate::engine::ops::testing::{check_node, node, Attr};
+    use crate::engine::ops::testing::{check_node, node, node_io, Attr};
 
     #[test]
     fn identity_and_dropout_match_tract() {
         check_node(node("Identity", &[]), &[&[3, 4]]);
         check_node(node("Dropout", &[]), &[&[3, 4]]);
         check_node(node("Cast", &[("to", Attr::I(1))]), &[&[3, 4]]);
+    }
+
+    #[test]
+    fn cast_to_an_integer_type_truncates_like_tract() {
+        // Float to int64 rounds toward zero (ONNX Cast-13); the gradient is zero almost everywhere.
+        use crate::engine::ops::testing::{random_tensor, tract_forward};
+        use crate::engine::ops::Op;
+        let n = node_io("Cast", &["x0"], &[("to", Attr::I(7))]);
+        let x = random_tensor(&[3, 4], 5, false).mapv(|v| v * 5.0);
+        let ours = super::Unary(super::TruncatingCast).forward(&[&x]).unwrap();
+        assert_eq!(ours, tract_forward(&n, &[x], &[]));
     }
 }
