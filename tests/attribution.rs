@@ -88,6 +88,7 @@ fn conductances_equal_jax_with_the_same_path_and_steps() {
         rule: Rule::Midpoint,
         steps: r["steps"].as_u64().unwrap() as usize,
         input_ig: true,
+        progress: &|_, _| {},
     };
     let res = integrate(&job).unwrap();
     let ours: Vec<f64> = (0..4).map(|c| res.conductance[0].index_axis(Axis(1), c).sum()).collect();

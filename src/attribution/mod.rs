@@ -150,7 +150,18 @@ fn residual(total: f64, df: f64) -> f64 {
 type Once = (f64, f64, Vec<ndarray::ArrayD<f64>>, Option<Tensor>);
 
 /// One attribution with a fixed step count, averaged over the baseline movies.
-fn once(model: &Model, x: &Tensor, baselines: &[Tensor], seed: &Tensor, req: &Request, steps: usize) -> Result<Once> {
+/// Progress callback: (finished, total) work items of the current path integral.
+pub type Progress<'a> = &'a (dyn Fn(usize, usize) + Sync);
+
+fn once(
+    model: &Model,
+    x: &Tensor,
+    baselines: &[Tensor],
+    seed: &Tensor,
+    req: &Request,
+    steps: usize,
+    progress: Progress,
+) -> Result<Once> {
     let prefix_end = frontier(&model.graph);
     let k = baselines.len() as f64;
     let (mut fx, mut fx0) = (0.0, 0.0);
@@ -167,6 +178,7 @@ fn once(model: &Model, x: &Tensor, baselines: &[Tensor], seed: &Tensor, req: &Re
             rule: req.rule,
             steps,
             input_ig: req.input_ig,
+            progress,
         };
         let r = integrate(&job)?;
         fx = r.f_x.iter().sum();
@@ -188,6 +200,16 @@ fn once(model: &Model, x: &Tensor, baselines: &[Tensor], seed: &Tensor, req: &Re
 
 /// Attribute the target's response to hidden units (and optionally input pixels).
 pub fn attribute(model: &Model, movie: &Array3<f32>, req: &Request) -> Result<Attribution> {
+    attribute_with_progress(model, movie, req, &|_, _| {})
+}
+
+/// As [`attribute`], reporting progress of each path integral.
+pub fn attribute_with_progress(
+    model: &Model,
+    movie: &Array3<f32>,
+    req: &Request,
+    progress: Progress,
+) -> Result<Attribution> {
     let b = &model.binding;
     let frames = movie.shape()[0];
     if let Some(&bad) = req.frames.iter().find(|&&f| f >= frames) {
@@ -212,7 +234,7 @@ pub fn attribute(model: &Model, movie: &Array3<f32>, req: &Request) -> Result<At
         Steps::Auto(t) => (16, Some(t)),
     };
     let (fx, fx0, sums, ig) = loop {
-        let (fx, fx0, sums, ig) = once(model, &x, &baselines, &seed, req, steps)?;
+        let (fx, fx0, sums, ig) = once(model, &x, &baselines, &seed, req, steps, progress)?;
         let Some(tol) = tolerance else { break (fx, fx0, sums, ig) };
         let mut worst = sums.iter().map(|c| residual(c.sum(), fx - fx0)).fold(0.0, f64::max);
         if let Some(a) = &ig {

@@ -35,6 +35,8 @@ pub struct PathJob<'a> {
     pub steps: usize,
     /// Whether to compute input integrated gradients.
     pub input_ig: bool,
+    /// Called with (finished, total) path points x window ranges, for progress bars.
+    pub progress: &'a (dyn Fn(usize, usize) + Sync),
 }
 
 /// The result of one path integral.
@@ -131,6 +133,7 @@ pub fn integrate(job: &PathJob) -> Result<PathResult> {
     let h = 1.0 / job.steps as f64;
 
     type Partial = (std::ops::Range<usize>, Vec<ndarray::ArrayD<f64>>, Option<ndarray::ArrayD<f64>>);
+    let done = std::sync::atomic::AtomicUsize::new(0);
     let partials: Vec<Partial> = items
         .par_iter()
         .map(|(k, range)| -> Result<Partial> {
@@ -170,6 +173,7 @@ pub fn integrate(job: &PathJob) -> Result<PathResult> {
                 cond.push(Zip::from(&grads[li]).and(&dy).map_collect(|&gv, &d| gv as f64 * d as f64));
             }
             let gz = job.input_ig.then(|| fold_blocks(&grads[job.layers.len()], m, &[weight]));
+            (job.progress)(done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1, items.len());
             Ok((range.clone(), cond, gz))
         })
         .collect::<Result<_>>()?;

@@ -7,6 +7,7 @@ use crate::output::{OutputDir, RunRecord};
 use crate::stimulus::{protocols, read_stimulus, Meta};
 use crate::{Error, Result};
 use clap::Args;
+use indicatif::{ProgressBar, ProgressStyle};
 use serde_json::json;
 use std::path::PathBuf;
 use std::time::Instant;
@@ -145,14 +146,30 @@ pub fn run(a: &AttributeArgs) -> Result<()> {
         a.common.seed,
     )?;
     let t1 = Instant::now();
-    let result = attribution::attribute(&model, &stim.movie, &request)?;
+    let bar = if a.common.quiet { ProgressBar::hidden() } else { ProgressBar::new(1) };
+    bar.set_style(
+        ProgressStyle::with_template("{msg} {bar:40} {pos}/{len}").unwrap_or_else(|_| ProgressStyle::default_bar()),
+    );
+    bar.set_message("path steps");
+    let tick = |done: usize, total: usize| {
+        bar.set_length(total as u64);
+        bar.set_position(done as u64);
+    };
+    let result = attribution::attribute_with_progress(&model, &stim.movie, &request, &tick)?;
     let mut agreement = Vec::new();
     for other in &others {
-        let r = attribution::attribute(&model, &stim.movie, &Request { baseline: other.clone(), ..request.clone() })?;
+        bar.set_message(format!("baseline {}", other.label()));
+        let r = attribution::attribute_with_progress(
+            &model,
+            &stim.movie,
+            &Request { baseline: other.clone(), ..request.clone() },
+            &tick,
+        )?;
         let flat = |x: &Attribution| x.layers.iter().flat_map(|l| l.total.clone()).collect::<Vec<f64>>();
         agreement.push(json!({"baseline": other.label(), "kendall_tau": crate::response::measure::json(kendall_tau(&flat(&result), &flat(&r))),
             "f_baseline": r.f_baseline, "completeness_residual": r.layers.iter().map(|l| l.residual).fold(0.0, f64::max)}));
     }
+    bar.finish_and_clear();
     let compute = t1.elapsed().as_secs_f64();
 
     let out = OutputDir::create(&a.out)?;
