@@ -2,12 +2,10 @@
 
 use super::{Common, ModelArgs};
 use crate::attribution::{self, rank::kendall_tau, Attribution, Baseline, Request, Rule, Steps};
-use crate::model::Model;
 use crate::output::{OutputDir, RunRecord};
-use crate::stimulus::{protocols, read_stimulus, Meta};
+use crate::stimulus::{protocols, Meta};
 use crate::{Error, Result};
 use clap::Args;
-use indicatif::{ProgressBar, ProgressStyle};
 use serde_json::json;
 use std::path::PathBuf;
 use std::time::Instant;
@@ -111,9 +109,7 @@ fn units_json(a: &Attribution) -> Vec<serde_json::Value> {
 /// Run attribution and write its results.
 pub fn run(a: &AttributeArgs) -> Result<()> {
     let t0 = Instant::now();
-    let model = Model::load(&a.model, &a.model_args.load_options()?)?;
-    let stim = read_stimulus(&a.stimulus)?;
-    crate::response::check_size(&model, &stim.movie)?;
+    let (model, stim) = super::model_and_stimulus(&a.model, &a.stimulus, &a.model_args)?;
     let rule = Rule::parse(&a.quadrature)
         .ok_or_else(|| Error::Usage(format!("--quadrature '{}': use midpoint or gauss-legendre", a.quadrature)))?;
     let steps = match a.steps.as_str() {
@@ -146,11 +142,7 @@ pub fn run(a: &AttributeArgs) -> Result<()> {
         a.common.seed,
     )?;
     let t1 = Instant::now();
-    let bar = if a.common.quiet { ProgressBar::hidden() } else { ProgressBar::new(1) };
-    bar.set_style(
-        ProgressStyle::with_template("{msg} {bar:40} {pos}/{len}").unwrap_or_else(|_| ProgressStyle::default_bar()),
-    );
-    bar.set_message("path steps");
+    let bar = super::progress_bar(a.common.quiet, 1, "path steps");
     let tick = |done: usize, total: usize| {
         bar.set_length(total as u64);
         bar.set_position(done as u64);

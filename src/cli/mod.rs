@@ -3,10 +3,13 @@
 
 mod attribute;
 mod inspect;
+mod knockout;
 mod respond;
 mod stimulus;
 
-use crate::model::{InputLayout, LoadOptions};
+use crate::model::{InputLayout, LoadOptions, Model};
+use crate::response::check_size;
+use crate::stimulus::{read_stimulus, Stimulus};
 use crate::{Error, Result};
 use clap::{Args, Parser, Subcommand};
 
@@ -30,6 +33,8 @@ pub enum Command {
     Respond(respond::RespondArgs),
     /// Attribute a response to hidden units (layer conductance) and input pixels (integrated gradients).
     Attribute(attribute::AttributeArgs),
+    /// Silence hidden units one at a time and rank their effect on a cell's response and metrics.
+    Knockout(knockout::KnockoutArgs),
 }
 
 /// Options every working command takes.
@@ -92,6 +97,29 @@ impl ModelArgs {
     }
 }
 
+/// Load a model and a stimulus folder and check that they fit each other.
+fn model_and_stimulus(
+    model: &std::path::Path,
+    stimulus: &std::path::Path,
+    args: &ModelArgs,
+) -> Result<(Model, Stimulus)> {
+    let model = Model::load(model, &args.load_options()?)?;
+    let stim = read_stimulus(stimulus)?;
+    check_size(&model, &stim.movie)?;
+    Ok((model, stim))
+}
+
+/// A progress bar showing `msg`, hidden with `--quiet` (and by indicatif when not on a terminal).
+fn progress_bar(quiet: bool, len: u64, msg: &'static str) -> indicatif::ProgressBar {
+    let bar = if quiet { indicatif::ProgressBar::hidden() } else { indicatif::ProgressBar::new(len) };
+    bar.set_style(
+        indicatif::ProgressStyle::with_template("{msg} {bar:40} {pos}/{len}")
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+    );
+    bar.set_message(msg);
+    bar
+}
+
 /// Run the parsed command.
 pub fn run(cli: Cli) -> Result<()> {
     match cli.command {
@@ -107,6 +135,10 @@ pub fn run(cli: Cli) -> Result<()> {
         Command::Attribute(a) => {
             a.common.apply()?;
             attribute::run(&a)
+        }
+        Command::Knockout(a) => {
+            a.common.apply()?;
+            knockout::run(&a)
         }
     }
 }

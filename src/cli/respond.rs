@@ -1,14 +1,11 @@
 //! `sufficit respond MODEL STIMULUS_DIR --out DIR`.
 
 use super::{Common, ModelArgs};
-use crate::model::Model;
 use crate::output::{OutputDir, RunRecord};
-use crate::response::{check_size, rates, rf_centres, write_responses};
+use crate::response::{rates, rf_centres, write_responses};
 use crate::stimulus::protocols::{self, Observed};
-use crate::stimulus::read_stimulus;
 use crate::Result;
 use clap::Args;
-use indicatif::{ProgressBar, ProgressStyle};
 use serde_json::json;
 use std::path::PathBuf;
 use std::time::Instant;
@@ -32,9 +29,7 @@ pub struct RespondArgs {
 /// Run the model on the stimulus, measure the protocol, write the results.
 pub fn run(a: &RespondArgs) -> Result<()> {
     let t0 = Instant::now();
-    let model = Model::load(&a.model, &a.model_args.load_options()?)?;
-    let stim = read_stimulus(&a.stimulus)?;
-    check_size(&model, &stim.movie)?;
+    let (model, stim) = super::model_and_stimulus(&a.model, &a.stimulus, &a.model_args)?;
     let protocol = protocols::find(&stim.meta.protocol)?;
     let record = RunRecord::new(
         "respond",
@@ -44,12 +39,7 @@ pub fn run(a: &RespondArgs) -> Result<()> {
     )?;
     let load = t0.elapsed().as_secs_f64();
 
-    let bar = if a.common.quiet { ProgressBar::hidden() } else { ProgressBar::new(stim.meta.frames as u64) };
-    bar.set_style(
-        ProgressStyle::with_template("{msg} {bar:40} {pos}/{len} frames")
-            .unwrap_or_else(|_| ProgressStyle::default_bar()),
-    );
-    bar.set_message("responses");
+    let bar = super::progress_bar(a.common.quiet, stim.meta.frames as u64, "responses");
     let t1 = Instant::now();
     let r = rates(&model, &stim.movie, &|n| bar.inc(n as u64))?;
     bar.finish_and_clear();

@@ -56,6 +56,16 @@ pub fn check_size(model: &Model, movie: &Array3<f32>) -> Result<()> {
 /// Rates `[frames, cells]` (output 0, flattened per sample) for every frame of `movie`.
 /// `progress` is called with the number of frames finished in each chunk.
 pub fn rates(model: &Model, movie: &Array3<f32>, progress: &(dyn Fn(usize) + Sync)) -> Result<Array2<f32>> {
+    rates_with(model, movie, &[], progress)
+}
+
+/// As [`rates`], with values overridden during every forward pass (ablation).
+pub fn rates_with(
+    model: &Model,
+    movie: &Array3<f32>,
+    overrides: &[crate::engine::Override],
+    progress: &(dyn Fn(usize) + Sync),
+) -> Result<Array2<f32>> {
     check_size(model, movie)?;
     let g = &model.graph;
     let frames = movie.shape()[0];
@@ -66,7 +76,7 @@ pub fn rates(model: &Model, movie: &Array3<f32>, progress: &(dyn Fn(usize) + Syn
         .map(|&first| {
             let n = chunk.min(frames - first);
             let input = model.binding.to_model_input(windows(movie, model.binding.lags, first, n));
-            let tape = g.forward(input, &[])?;
+            let tape = g.forward(input, overrides)?;
             let out = tape.outputs()[0];
             let cells = out.len() / n;
             let r = out

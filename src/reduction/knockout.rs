@@ -1,0 +1,127 @@
+//! Knock-outs: silence units one at a time (and a chosen set together), rerun the protocol, and
+//! rank the units by how much the target cell's response and the protocol's metrics change.
+//! These are the model's candidates for silencing experiments.
+
+use super::{label, silence, Clamp, Unit};
+use crate::model::Model;
+use crate::response::rates_with;
+use crate::stimulus::protocols::{self, Observed};
+use crate::stimulus::Stimulus;
+use crate::{Error, Result};
+use ndarray::Array2;
+use serde::Serialize;
+use serde_json::Value;
+
+/// The effect of silencing one set of units.
+#[derive(Debug, Clone, Serialize)]
+pub struct Effect {
+    /// The silenced units, `layer:channel`.
+    pub units: Vec<String>,
+    /// RMS change of the cell's rate over the analysis window, relative to the RMS of the full
+    /// rate there: 0 = no effect, 1 = as large as the response itself.
+    pub relative_rms_change: f64,
+    /// Fraction of the full response's variance in the window that the silenced response
+    /// still explains (1 = shape untouched; NaN for a flat response).
+    pub fraction_variance_explained: f64,
+    /// Mean rate in the window, full and silenced.
+    pub mean_full: f64,
+    /// Mean rate in the window with the units silenced.
+    pub mean_silenced: f64,
+    /// Every numeric metric of the protocol for the cell: (name, full, silenced, change).
+    pub metrics: Vec<(String, f64, f64, f64)>,
+    /// 1 = largest effect.
+    pub rank: usize,
+}
+
+/// Numeric leaves of a JSON value, with dotted/indexed paths.
+fn leaves(v: &Value, path: &str, out: &mut Vec<(String, f64)>) {
+    match v {
+        Value::Number(n) => out.push((path.to_string(), n.as_f64().unwrap_or(f64::NAN))),
+        Value::Object(m) => {
+            m.iter().for_each(|(k, x)| leaves(x, &if path.is_empty() { k.clone() } else { format!("{path}.{k}") }, out))
+        }
+        Value::Array(a) => a.iter().enumerate().for_each(|(i, x)| leaves(x, &format!("{path}[{i}]"), out)),
+        _ => {}
+    }
+}
+
+/// The cell's metrics from a protocol's summary.
+fn cell_metrics(summary: &Value, cell: usize) -> Vec<(String, f64)> {
+    let mut out = Vec::new();
+    if let Some(c) = summary["cells"].get(cell) {
+        leaves(c, "", &mut out);
+    }
+    out.retain(|(k, _)| k != "cell");
+    out
+}
+
+/// Silence each set in `sets`, measure, and rank by relative RMS change (largest first).
+pub fn knockouts(
+    model: &Model,
+    stim: &Stimulus,
+    cell: usize,
+    sets: &[Vec<Unit>],
+    clamp: Clamp,
+    rf_centres: &[(f64, f64)],
+    progress: &(dyn Fn() + Sync),
+) -> Result<Vec<Effect>> {
+    let protocol = protocols::find(&stim.meta.protocol)?;
+    let mut frames: Vec<usize> =
+        stim.meta.windows_named(protocol.target_window()).flat_map(|w| w.start..w.end).collect();
+    frames.sort_unstable();
+    frames.dedup();
+    if frames.is_empty() {
+        return Err(Error::Usage(format!(
+            "the stimulus has no '{}' analysis window to judge knock-outs by",
+            protocol.target_window()
+        )));
+    }
+    let measure = |r: &Array2<f32>| -> Result<Value> {
+        let obs =
+            Observed { meta: &stim.meta, movie: &stim.movie, rates: r.view(), lags: model.binding.lags, rf_centres };
+        Ok(protocol.measure(&obs)?.summary)
+    };
+    let full = rates_with(model, &stim.movie, &[], &|_| {})?;
+    if cell >= full.ncols() {
+        return Err(Error::Usage(format!("cell {cell} is out of range: the model has {} cells", full.ncols())));
+    }
+    let full_metrics = cell_metrics(&measure(&full)?, cell);
+    let trace = |r: &Array2<f32>| frames.iter().map(|&t| r[[t, cell]] as f64).collect::<Vec<f64>>();
+    let f = trace(&full);
+    let n = f.len() as f64;
+    let mean_full = f.iter().sum::<f64>() / n;
+    let rms_full = (f.iter().map(|v| v * v).sum::<f64>() / n).sqrt().max(1e-30);
+    let var_full: f64 = f.iter().map(|v| (v - mean_full).powi(2)).sum();
+    let mut effects = Vec::with_capacity(sets.len());
+    for set in sets {
+        let overrides = silence(model, &stim.movie, set, clamp)?;
+        let r = rates_with(model, &stim.movie, &overrides, &|_| {})?;
+        let k = trace(&r);
+        let sse: f64 = f.iter().zip(&k).map(|(a, b)| (a - b).powi(2)).sum();
+        let silenced = cell_metrics(&measure(&r)?, cell);
+        let metrics = full_metrics
+            .iter()
+            .map(|(name, a)| {
+                let b = silenced.iter().find(|(m, _)| m == name).map_or(f64::NAN, |(_, v)| *v);
+                (name.clone(), *a, b, b - a)
+            })
+            .collect();
+        effects.push(Effect {
+            units: set.iter().map(|u| label(model, u)).collect(),
+            relative_rms_change: (sse / n).sqrt() / rms_full,
+            fraction_variance_explained: if var_full > 0.0 { 1.0 - sse / var_full } else { f64::NAN },
+            mean_full,
+            mean_silenced: k.iter().sum::<f64>() / n,
+            metrics,
+            rank: 0,
+        });
+        progress();
+    }
+    let mut order: Vec<usize> = (0..effects.len()).collect();
+    order.sort_by(|&a, &b| effects[b].relative_rms_change.total_cmp(&effects[a].relative_rms_change));
+    for (rank, &i) in order.iter().enumerate() {
+        effects[i].rank = rank + 1;
+    }
+    effects.sort_by_key(|e| e.rank);
+    Ok(effects)
+}
