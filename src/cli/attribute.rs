@@ -1,22 +1,18 @@
 //! `sufficit attribute MODEL STIMULUS_DIR --cell C --layer NAME|auto|all --out DIR`.
 
-use super::{Common, ModelArgs};
 use crate::attribution::{self, rank::kendall_tau, Attribution, Baseline, Request, Rule, Steps};
 use crate::output::{OutputDir, RunRecord};
 use crate::stimulus::{protocols, Meta};
 use crate::{Error, Result};
 use clap::Args;
 use serde_json::json;
-use std::path::PathBuf;
 use std::time::Instant;
 
 /// Arguments of `attribute`.
 #[derive(Debug, Args)]
 pub struct AttributeArgs {
-    /// The ONNX model.
-    pub model: PathBuf,
-    /// A stimulus folder made by `sufficit stimulus`.
-    pub stimulus: PathBuf,
+    #[command(flatten)]
+    pub job: super::Job,
     /// Target cell, or a weighted set as CELL:WEIGHT,CELL:WEIGHT.
     #[arg(long, default_value = "0")]
     pub cell: String,
@@ -45,13 +41,6 @@ pub struct AttributeArgs {
     /// Also write input integrated gradients (input_ig.npy).
     #[arg(long)]
     pub input_ig: bool,
-    /// Output folder.
-    #[arg(long)]
-    pub out: PathBuf,
-    #[command(flatten)]
-    pub model_args: ModelArgs,
-    #[command(flatten)]
-    pub common: Common,
 }
 
 fn parse_cells(s: &str) -> Result<Vec<(usize, f32)>> {
@@ -109,7 +98,7 @@ fn units_json(a: &Attribution) -> Vec<serde_json::Value> {
 /// Run attribution and write its results.
 pub fn run(a: &AttributeArgs) -> Result<()> {
     let t0 = Instant::now();
-    let (model, stim) = super::model_and_stimulus(&a.model, &a.stimulus, &a.model_args)?;
+    let (model, stim) = a.job.load()?;
     let rule = Rule::parse(&a.quadrature)
         .ok_or_else(|| Error::Usage(format!("--quadrature '{}': use midpoint or gauss-legendre", a.quadrature)))?;
     let steps = match a.steps.as_str() {
@@ -129,20 +118,20 @@ pub fn run(a: &AttributeArgs) -> Result<()> {
         rule,
         steps,
         input_ig: a.input_ig,
-        seed: a.common.seed,
+        seed: a.job.common.seed,
     };
     let others: Vec<Baseline> =
         a.compare_baselines.as_deref().map_or(Ok(vec![]), |s| s.split(',').map(Baseline::parse).collect())?;
     let record = RunRecord::new(
         "attribute",
-        Some(&a.model),
-        json!({"stimulus": a.stimulus.display().to_string(), "cell": a.cell,
+        Some(&a.job.model),
+        json!({"stimulus": a.job.stimulus.display().to_string(), "cell": a.cell,
         "layer": a.layer, "window": a.window, "steps": a.steps, "tolerance": a.tolerance, "quadrature": a.quadrature,
         "baseline": a.baseline, "compare_baselines": a.compare_baselines, "input_ig": a.input_ig}),
-        a.common.seed,
+        a.job.common.seed,
     )?;
     let t1 = Instant::now();
-    let bar = super::progress_bar(a.common.quiet, 1, "path steps");
+    let bar = super::progress_bar(a.job.common.quiet, 1, "path steps");
     let tick = |done: usize, total: usize| {
         bar.set_length(total as u64);
         bar.set_position(done as u64);
@@ -164,7 +153,7 @@ pub fn run(a: &AttributeArgs) -> Result<()> {
     bar.finish_and_clear();
     let compute = t1.elapsed().as_secs_f64();
 
-    let out = OutputDir::create(&a.out)?;
+    let out = OutputDir::create(&a.job.out)?;
     let frames = stim.meta.frames;
     let time: Vec<f32> = result.layers.iter().flat_map(|l| l.time.iter().copied()).collect();
     let units = result.layers.iter().map(|l| l.total.len()).sum::<usize>();
@@ -217,7 +206,7 @@ pub fn run(a: &AttributeArgs) -> Result<()> {
     let mut record = record;
     record.timings = vec![("load".into(), t1.duration_since(t0).as_secs_f64()), ("attribution".into(), compute)];
     out.write_json("run.json", &record)?;
-    if !a.common.quiet {
+    if !a.job.common.quiet {
         for w in &result.warnings {
             eprintln!("sufficit: warning: {w}");
         }
@@ -226,7 +215,7 @@ pub fn run(a: &AttributeArgs) -> Result<()> {
             units,
             result.steps,
             json["completeness_residual"].as_f64().unwrap_or(f64::NAN),
-            a.out.display()
+            a.job.out.display()
         );
     }
     Ok(())

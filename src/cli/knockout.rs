@@ -1,6 +1,5 @@
 //! `sufficit knockout MODEL STIMULUS_DIR --cell C [--units L:c,...] --out DIR`.
 
-use super::{Common, ModelArgs};
 use crate::output::{OutputDir, RunRecord};
 use crate::reduction::knockout::knockouts;
 use crate::reduction::{all_units, parse_units, Clamp};
@@ -8,16 +7,13 @@ use crate::response::{measure::json as num, rf_centres};
 use crate::Result;
 use clap::Args;
 use serde_json::json;
-use std::path::PathBuf;
 use std::time::Instant;
 
 /// Arguments of `knockout`.
 #[derive(Debug, Args)]
 pub struct KnockoutArgs {
-    /// The ONNX model.
-    pub model: PathBuf,
-    /// A stimulus folder made by `sufficit stimulus`.
-    pub stimulus: PathBuf,
+    #[command(flatten)]
+    pub job: super::Job,
     /// The cell whose response is judged.
     #[arg(long, default_value_t = 0)]
     pub cell: usize,
@@ -28,19 +24,12 @@ pub struct KnockoutArgs {
     /// What a silenced unit is clamped to: baseline (its activation under gray), mean or zero.
     #[arg(long, default_value = "baseline")]
     pub clamp: String,
-    /// Output folder.
-    #[arg(long)]
-    pub out: PathBuf,
-    #[command(flatten)]
-    pub model_args: ModelArgs,
-    #[command(flatten)]
-    pub common: Common,
 }
 
 /// Silence units, measure, rank, write knockouts.json and knockouts.csv.
 pub fn run(a: &KnockoutArgs) -> Result<()> {
     let t0 = Instant::now();
-    let (model, stim) = super::model_and_stimulus(&a.model, &a.stimulus, &a.model_args)?;
+    let (model, stim) = a.job.load()?;
     let clamp = Clamp::parse(&a.clamp)?;
     let sets = match &a.units {
         Some(spec) => {
@@ -55,16 +44,16 @@ pub fn run(a: &KnockoutArgs) -> Result<()> {
     };
     let record = RunRecord::new(
         "knockout",
-        Some(&a.model),
-        json!({"stimulus": a.stimulus.display().to_string(), "cell": a.cell, "units": a.units, "clamp": a.clamp}),
-        a.common.seed,
+        Some(&a.job.model),
+        json!({"stimulus": a.job.stimulus.display().to_string(), "cell": a.cell, "units": a.units, "clamp": a.clamp}),
+        a.job.common.seed,
     )?;
-    let bar = super::progress_bar(a.common.quiet, sets.len() as u64, "knock-outs");
-    let centres = rf_centres(&model, a.common.seed)?;
+    let bar = super::progress_bar(a.job.common.quiet, sets.len() as u64, "knock-outs");
+    let centres = rf_centres(&model, a.job.common.seed)?;
     let effects = knockouts(&model, &stim, a.cell, &sets, clamp, &centres, &|| bar.inc(1))?;
     bar.finish_and_clear();
 
-    let out = OutputDir::create(&a.out)?;
+    let out = OutputDir::create(&a.job.out)?;
     let mut csv = String::from("rank,units,relative_rms_change,fraction_variance_explained,mean_full,mean_silenced\n");
     for e in &effects {
         csv += &format!(
@@ -96,13 +85,13 @@ pub fn run(a: &KnockoutArgs) -> Result<()> {
     let mut record = record;
     record.timings = vec![("total".into(), t0.elapsed().as_secs_f64())];
     out.write_json("run.json", &record)?;
-    if !a.common.quiet {
+    if !a.job.common.quiet {
         if let Some(top) = effects.first() {
             println!(
                 "strongest knock-out: {} (relative change {:.3}); results in {}",
                 top.units.join(" + "),
                 top.relative_rms_change,
-                a.out.display()
+                a.job.out.display()
             );
         }
     }

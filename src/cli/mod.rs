@@ -97,16 +97,30 @@ impl ModelArgs {
     }
 }
 
-/// Load a model and a stimulus folder and check that they fit each other.
-fn model_and_stimulus(
-    model: &std::path::Path,
-    stimulus: &std::path::Path,
-    args: &ModelArgs,
-) -> Result<(Model, Stimulus)> {
-    let model = Model::load(model, &args.load_options()?)?;
-    let stim = read_stimulus(stimulus)?;
-    check_size(&model, &stim.movie)?;
-    Ok((model, stim))
+/// The arguments of every command that runs a model on a stimulus folder.
+#[derive(Debug, Args)]
+pub struct Job {
+    /// The ONNX model.
+    pub model: std::path::PathBuf,
+    /// A stimulus folder made by `sufficit stimulus`.
+    pub stimulus: std::path::PathBuf,
+    /// Output folder.
+    #[arg(long)]
+    pub out: std::path::PathBuf,
+    #[command(flatten)]
+    pub model_args: ModelArgs,
+    #[command(flatten)]
+    pub common: Common,
+}
+
+impl Job {
+    /// Load the model and the stimulus folder and check that they fit each other.
+    fn load(&self) -> Result<(Model, Stimulus)> {
+        let model = Model::load(&self.model, &self.model_args.load_options()?)?;
+        let stim = read_stimulus(&self.stimulus)?;
+        check_size(&model, &stim.movie)?;
+        Ok((model, stim))
+    }
 }
 
 /// A progress bar showing `msg`, hidden with `--quiet` (and by indicatif when not on a terminal).
@@ -129,15 +143,15 @@ pub fn run(cli: Cli) -> Result<()> {
             stimulus::run(&a)
         }
         Command::Respond(a) => {
-            a.common.apply()?;
+            a.job.common.apply()?;
             respond::run(&a)
         }
         Command::Attribute(a) => {
-            a.common.apply()?;
+            a.job.common.apply()?;
             attribute::run(&a)
         }
         Command::Knockout(a) => {
-            a.common.apply()?;
+            a.job.common.apply()?;
             knockout::run(&a)
         }
     }

@@ -1,50 +1,39 @@
 //! `sufficit respond MODEL STIMULUS_DIR --out DIR`.
 
-use super::{Common, ModelArgs};
 use crate::output::{OutputDir, RunRecord};
 use crate::response::{rates, rf_centres, write_responses};
 use crate::stimulus::protocols::{self, Observed};
 use crate::Result;
 use clap::Args;
 use serde_json::json;
-use std::path::PathBuf;
 use std::time::Instant;
 
 /// Arguments of `respond`.
 #[derive(Debug, Args)]
 pub struct RespondArgs {
-    /// The ONNX model.
-    pub model: PathBuf,
-    /// A stimulus folder made by `sufficit stimulus`.
-    pub stimulus: PathBuf,
-    /// Output folder.
-    #[arg(long)]
-    pub out: PathBuf,
     #[command(flatten)]
-    pub model_args: ModelArgs,
-    #[command(flatten)]
-    pub common: Common,
+    pub job: super::Job,
 }
 
 /// Run the model on the stimulus, measure the protocol, write the results.
 pub fn run(a: &RespondArgs) -> Result<()> {
     let t0 = Instant::now();
-    let (model, stim) = super::model_and_stimulus(&a.model, &a.stimulus, &a.model_args)?;
+    let (model, stim) = a.job.load()?;
     let protocol = protocols::find(&stim.meta.protocol)?;
     let record = RunRecord::new(
         "respond",
-        Some(&a.model),
-        json!({"stimulus": a.stimulus.display().to_string(), "protocol": stim.meta.protocol, "layout": model.binding}),
-        a.common.seed,
+        Some(&a.job.model),
+        json!({"stimulus": a.job.stimulus.display().to_string(), "protocol": stim.meta.protocol, "layout": model.binding}),
+        a.job.common.seed,
     )?;
     let load = t0.elapsed().as_secs_f64();
 
-    let bar = super::progress_bar(a.common.quiet, stim.meta.frames as u64, "responses");
+    let bar = super::progress_bar(a.job.common.quiet, stim.meta.frames as u64, "responses");
     let t1 = Instant::now();
     let r = rates(&model, &stim.movie, &|n| bar.inc(n as u64))?;
     bar.finish_and_clear();
     let forward = t1.elapsed().as_secs_f64();
-    let centres = rf_centres(&model, a.common.seed)?;
+    let centres = rf_centres(&model, a.job.common.seed)?;
     let t2 = Instant::now();
     let obs = Observed {
         meta: &stim.meta,
@@ -56,14 +45,14 @@ pub fn run(a: &RespondArgs) -> Result<()> {
     let measured = protocol.measure(&obs)?;
     let metrics = t2.elapsed().as_secs_f64();
 
-    let out = OutputDir::create(&a.out)?;
+    let out = OutputDir::create(&a.job.out)?;
     let sha = record.model.as_ref().map(|m| m.sha256.clone()).unwrap_or_default();
     write_responses(&out, &r, &stim.meta, &centres, &measured, &sha)?;
     let mut record = record;
     record.timings = vec![("load".into(), load), ("responses".into(), forward), ("metrics".into(), metrics)];
     out.write_json("run.json", &record)?;
-    if !a.common.quiet {
-        println!("{} frames x {} cells; results in {}", r.nrows(), r.ncols(), a.out.display());
+    if !a.job.common.quiet {
+        println!("{} frames x {} cells; results in {}", r.nrows(), r.ncols(), a.job.out.display());
     }
     Ok(())
 }
