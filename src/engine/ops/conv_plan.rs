@@ -79,8 +79,6 @@ impl WindowAttrs {
 pub struct Geometry {
     /// Unpadded input spatial size.
     pub input: Vec<usize>,
-    /// Padding before each axis.
-    pub pad_begin: Vec<usize>,
     /// Padded input spatial size.
     pub padded: Vec<usize>,
     /// Output spatial size.
@@ -97,6 +95,8 @@ pub struct Geometry {
     pub valid: Vec<usize>,
     /// Flat padded-input offset where each output position's window starts (row-major).
     pub starts: Vec<usize>,
+    /// Flat padded-input offset of every unpadded input position (row-major).
+    interior: Vec<usize>,
 }
 
 fn row_major_strides(shape: &[usize]) -> Vec<usize> {
@@ -185,9 +185,11 @@ impl Geometry {
                 .collect();
             (a.strides[r - 1], segments, out_idx.len(), (0..out_idx.len()).collect())
         };
+        let interior =
+            indices(input).iter().map(|i| (0..r).map(|d| (i[d] + pad_begin[d]) * ps[d]).sum()).collect();
         Ok(Geometry {
+            interior,
             input: input.to_vec(),
-            pad_begin,
             padded,
             output,
             kernel_offsets,
@@ -209,10 +211,9 @@ impl Geometry {
     pub fn pad(&self, x: &[f32], channels: usize, fill: f32) -> Vec<f32> {
         let (plen, ilen) = (self.padded_len(), self.input.iter().product::<usize>());
         let mut out = vec![fill; channels * plen];
-        let map = self.interior_offsets();
         for c in 0..channels {
             let (src, dst) = (&x[c * ilen..(c + 1) * ilen], &mut out[c * plen..(c + 1) * plen]);
-            for (i, &o) in map.iter().enumerate() {
+            for (i, &o) in self.interior.iter().enumerate() {
                 dst[o] = src[i];
             }
         }
@@ -222,18 +223,11 @@ impl Geometry {
     /// Inverse of [`Geometry::pad`] for gradients: read the interior back out.
     pub fn unpad(&self, xp: &[f32], channels: usize) -> Vec<f32> {
         let plen = self.padded_len();
-        let map = self.interior_offsets();
-        let mut out = Vec::with_capacity(channels * map.len());
+        let mut out = Vec::with_capacity(channels * self.interior.len());
         for c in 0..channels {
-            out.extend(map.iter().map(|&o| xp[c * plen + o]));
+            out.extend(self.interior.iter().map(|&o| xp[c * plen + o]));
         }
         out
-    }
-
-    /// Flat padded offset of every unpadded input position (row-major).
-    fn interior_offsets(&self) -> Vec<usize> {
-        let ps = row_major_strides(&self.padded);
-        indices(&self.input).iter().map(|i| (0..i.len()).map(|d| (i[d] + self.pad_begin[d]) * ps[d]).sum()).collect()
     }
 }
 
@@ -260,9 +254,11 @@ mod tests {
         assert_eq!(g.output, vec![36, 36]);
         let g = Geometry::new(&attrs(&[3, 3], &[2, 2], "SAME_UPPER"), &[7, 8]).unwrap();
         assert_eq!(g.output, vec![4, 4]);
-        assert_eq!(g.pad_begin, vec![1, 0]);
+        // Padded to 9x9 with the input's first pixel at row 1, column 0 (pads before: 1, 0).
+        assert_eq!((g.padded.clone(), g.interior[0]), (vec![9, 9], 9));
         let g = Geometry::new(&attrs(&[3, 3], &[2, 2], "SAME_LOWER"), &[7, 8]).unwrap();
-        assert_eq!(g.pad_begin, vec![1, 1]);
+        // Pads before: 1, 1.
+        assert_eq!((g.padded.clone(), g.interior[0]), (vec![9, 9], 10));
     }
 
     #[test]
