@@ -10,7 +10,7 @@ use ndarray::{Array3, ArrayD, Axis, IxDyn};
 use rand::rngs::ChaCha8Rng;
 use rand::{RngExt, SeedableRng};
 use std::path::{Path, PathBuf};
-use sufficit::attribution::path::{integrate, PathJob};
+use sufficit::attribution::path::{integrate, Endpoints, PathJob};
 use sufficit::attribution::{attribute, frontier, resolve_layers, Baseline, Request, Rule, Steps};
 use sufficit::model::{LoadOptions, Model};
 use tract_onnx::pb;
@@ -84,13 +84,13 @@ fn conductances_equal_jax_with_the_same_path_and_steps() {
         x0: &x0,
         seed: &seed,
         layers: &[layer],
-        prefix_end: frontier(g),
         rule: Rule::Midpoint,
         steps: r["steps"].as_u64().unwrap() as usize,
         input_ig: true,
         progress: &|_, _| {},
     };
-    let res = integrate(&job).unwrap();
+    let ends = Endpoints::new(g, &x, std::slice::from_ref(&x0), &seed, frontier(g)).unwrap();
+    let res = integrate(&job, &ends, 0).unwrap();
     let ours: Vec<f64> = (0..4).map(|c| res.conductance[0].index_axis(Axis(1), c).sum()).collect();
     let theirs: Vec<f64> =
         r["conductance_per_channel"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();

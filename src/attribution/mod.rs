@@ -21,7 +21,7 @@ use crate::model::Model;
 use crate::response::windows_at;
 use crate::{Error, Result, Tensor};
 use ndarray::{Array2, Array3, Axis, IxDyn};
-use path::{integrate, PathJob};
+use path::{integrate, Endpoints, PathJob};
 
 /// Number of path steps: fixed, or doubled from 16 until the completeness residual is small.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -153,34 +153,34 @@ type Once = (f64, f64, Vec<ndarray::ArrayD<f64>>, Option<Tensor>);
 /// Progress callback: (finished, total) work items of the current path integral.
 pub type Progress<'a> = &'a (dyn Fn(usize, usize) + Sync);
 
+#[allow(clippy::too_many_arguments)]
 fn once(
     model: &Model,
     x: &Tensor,
     baselines: &[Tensor],
+    ends: &Endpoints,
     seed: &Tensor,
     req: &Request,
     steps: usize,
     progress: Progress,
 ) -> Result<Once> {
-    let prefix_end = frontier(&model.graph);
     let k = baselines.len() as f64;
     let (mut fx, mut fx0) = (0.0, 0.0);
     let mut sums: Option<Vec<ndarray::ArrayD<f64>>> = None;
     let mut ig: Option<Tensor> = None;
-    for x0 in baselines {
+    for (b, x0) in baselines.iter().enumerate() {
         let job = PathJob {
             graph: &model.graph,
             x,
             x0,
             seed,
             layers: &req.layers,
-            prefix_end,
             rule: req.rule,
             steps,
             input_ig: req.input_ig,
             progress,
         };
-        let r = integrate(&job)?;
+        let r = integrate(&job, ends, b)?;
         fx = r.f_x.iter().sum();
         fx0 += r.f_x0.iter().sum::<f64>() / k;
         match &mut sums {
@@ -228,13 +228,14 @@ pub fn attribute_with_progress(
         .iter()
         .map(|m| b.to_model_input(windows_at(m, b.lags, &req.frames)))
         .collect();
+    let ends = Endpoints::new(&model.graph, &x, &baselines, &seed, frontier(&model.graph))?;
     let mut warnings = Vec::new();
     let (mut steps, tolerance) = match req.steps {
         Steps::Fixed(n) => (n.max(1), None),
         Steps::Auto(t) => (16, Some(t)),
     };
     let (fx, fx0, sums, ig) = loop {
-        let (fx, fx0, sums, ig) = once(model, &x, &baselines, &seed, req, steps, progress)?;
+        let (fx, fx0, sums, ig) = once(model, &x, &baselines, &ends, &seed, req, steps, progress)?;
         let Some(tol) = tolerance else { break (fx, fx0, sums, ig) };
         let mut worst = sums.iter().map(|c| residual(c.sum(), fx - fx0)).fold(0.0, f64::max);
         if let Some(a) = &ig {

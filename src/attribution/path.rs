@@ -27,8 +27,6 @@ pub struct PathJob<'a> {
     pub seed: &'a Tensor,
     /// Layers (hidden values) whose conductance is wanted.
     pub layers: &'a [ValueId],
-    /// The end of the affine prefix, if any.
-    pub prefix_end: Option<ValueId>,
     /// Quadrature rule.
     pub rule: Rule,
     /// Number of steps (midpoint) or nodes (Gauss-Legendre).
@@ -37,6 +35,50 @@ pub struct PathJob<'a> {
     pub input_ig: bool,
     /// Called with (finished, total) path points x window ranges, for progress bars.
     pub progress: &'a (dyn Fn(usize, usize) + Sync),
+}
+
+/// The full-model passes at the path's ends, computed once and reused for every step count:
+/// the stimulus (kept as a tape for the final input-gradient step through the prefix) and each
+/// baseline.
+pub struct Endpoints<'g> {
+    start: ValueId,
+    tape_x: crate::engine::Tape<'g>,
+    f_x: Vec<f64>,
+    baselines: Vec<BaselineEnd>,
+}
+
+/// One baseline's end of the path.
+struct BaselineEnd {
+    z0: Tensor,
+    dz: Tensor,
+    f_x0: Vec<f64>,
+}
+
+impl<'g> Endpoints<'g> {
+    /// Run the model on the stimulus windows `x` and on each baseline in `x0s`; `prefix_end` is
+    /// where path points start from (the model input when there is no affine prefix).
+    pub fn new(
+        graph: &'g Graph,
+        x: &Tensor,
+        x0s: &[Tensor],
+        seed: &Tensor,
+        prefix_end: Option<ValueId>,
+    ) -> Result<Self> {
+        let out = graph.outputs[0];
+        let start = prefix_end.unwrap_or(graph.input);
+        let tape_x = graph.forward(x.clone(), &[])?;
+        let f_x = weighted_output(tape_x.value(out), seed);
+        let z1 = tape_x.value(start);
+        let baselines = x0s
+            .iter()
+            .map(|x0| {
+                let tape = graph.forward(x0.clone(), &[])?;
+                let z0 = tape.value(start).clone();
+                Ok(BaselineEnd { dz: z1 - &z0, z0, f_x0: weighted_output(tape.value(out), seed) })
+            })
+            .collect::<Result<_>>()?;
+        Ok(Endpoints { start, tape_x, f_x, baselines })
+    }
 }
 
 /// The result of one path integral.
@@ -92,21 +134,14 @@ fn fold_blocks(t: &Tensor, n: usize, weights: &[f64]) -> ndarray::ArrayD<f64> {
 }
 
 /// Run the path integral.
-pub fn integrate(job: &PathJob) -> Result<PathResult> {
+/// Run the path integral from baseline `baseline` of `ends` to the stimulus.
+pub fn integrate(job: &PathJob, ends: &Endpoints, baseline: usize) -> Result<PathResult> {
     let g = job.graph;
     let n = job.x.shape()[0];
     let out = g.outputs[0];
-    let start = job.prefix_end.unwrap_or(g.input);
-    // Endpoints: full forward passes give F, the prefix values and (for x) the tape for the
-    // final input-gradient step through the prefix.
-    let tape_x = g.forward(job.x.clone(), &[])?;
-    let tape_x0 = g.forward(job.x0.clone(), &[])?;
-    let f_x = weighted_output(tape_x.value(out), job.seed);
-    let f_x0 = weighted_output(tape_x0.value(out), job.seed);
-    let z1 = tape_x.value(start).clone();
-    let z0 = tape_x0.value(start).clone();
-    let dz = &z1 - &z0;
-    drop(tape_x0);
+    let start = ends.start;
+    let BaselineEnd { z0, dz, f_x0 } = &ends.baselines[baseline];
+    let (f_x, f_x0) = (ends.f_x.clone(), f_x0.clone());
 
     if job.rule == Rule::GaussLegendre {
         for &l in job.layers {
@@ -139,31 +174,39 @@ pub fn integrate(job: &PathJob) -> Result<PathResult> {
         .map(|(k, range)| -> Result<Partial> {
             let (alpha, weight) = points[*k];
             let m = range.len();
-            let z_mid = along(&z0, &dz, &[alpha], range.clone());
+            let z_mid = along(z0, dz, &[alpha], range.clone());
             let tape = g.forward_from(vec![(start, z_mid)], &[])?;
             let mut wanted: Vec<ValueId> = job.layers.to_vec();
             wanted.push(start);
             let grads = tape.gradients(&[(out, seeds(job.seed, m))], &wanted)?;
+            // Midpoint: every layer at both ends of the step [alpha - h/2, alpha + h/2], in one pass.
+            let step_ends = match job.rule {
+                Rule::Midpoint => {
+                    let z = along(z0, dz, &[alpha - h / 2.0, alpha + h / 2.0], range.clone());
+                    Some(g.forward_to(vec![(start, z)], job.layers, &[])?)
+                }
+                Rule::GaussLegendre => None,
+            };
+            let dz_r = step_ends.is_none().then(|| dz.slice_axis(Axis(0), range.clone().into()).to_owned());
             let mut cond = Vec::with_capacity(job.layers.len());
             for (li, &l) in job.layers.iter().enumerate() {
-                let dy = match job.rule {
-                    Rule::Midpoint => {
-                        // Exact change of the layer across the step [alpha - h/2, alpha + h/2].
-                        let ends = along(&z0, &dz, &[alpha - h / 2.0, alpha + h / 2.0], range.clone());
-                        let t = g.forward_to(vec![(start, ends)], &[l], &[])?;
+                let dy = match &step_ends {
+                    Some(t) => {
+                        // Exact change of the layer across the step.
                         let y = t.try_value(l).ok_or_else(|| {
                             Error::Usage(format!("layer '{}' is not downstream of the input", g.values[l].name))
                         })?;
                         &y.slice_axis(Axis(0), (m..2 * m).into()) - &y.slice_axis(Axis(0), (0..m).into())
                     }
-                    Rule::GaussLegendre => {
+                    None => {
+                        // Gauss-Legendre: dy/da = f'(z(a)) (z1 - z0), weighted by the node's weight.
                         let p = g.producer(l).expect("checked above");
-                        let dz_r = dz.slice_axis(Axis(0), range.clone().into()).to_owned();
+                        let dz_r = dz_r.as_ref().expect("made for Gauss-Legendre");
                         let zin = tape.value(start);
                         let args = crate::engine::ops::BackwardArgs {
                             inputs: &[zin],
                             output: tape.value(l),
-                            grad: &dz_r,
+                            grad: dz_r,
                             wants: &[true],
                         };
                         let d = p.op.backward(&args).map_err(|e| Error::Usage(e.0))?.remove(0).expect("wanted");
@@ -210,7 +253,7 @@ pub fn integrate(job: &PathJob) -> Result<PathResult> {
         None => None,
         Some(gz) => {
             let gz = gz.mapv(|v| v as f32);
-            let gx = if start == g.input { gz } else { tape_x.gradients(&[(start, gz)], &[g.input])?.remove(0) };
+            let gx = if start == g.input { gz } else { ends.tape_x.gradients(&[(start, gz)], &[g.input])?.remove(0) };
             let dx = job.x - job.x0;
             Some(&dx * &gx)
         }

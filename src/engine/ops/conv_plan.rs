@@ -185,8 +185,7 @@ impl Geometry {
                 .collect();
             (a.strides[r - 1], segments, out_idx.len(), (0..out_idx.len()).collect())
         };
-        let interior =
-            indices(input).iter().map(|i| (0..r).map(|d| (i[d] + pad_begin[d]) * ps[d]).sum()).collect();
+        let interior = indices(input).iter().map(|i| (0..r).map(|d| (i[d] + pad_begin[d]) * ps[d]).sum()).collect();
         Ok(Geometry {
             interior,
             input: input.to_vec(),
