@@ -33,6 +33,26 @@ pub fn read_stimulus(dir: &Path) -> Result<Stimulus> {
             meta.width
         )));
     }
+    let outside = |f: usize| f > meta.frames;
+    if let Some(w) = meta.windows.iter().find(|w| w.start >= w.end || outside(w.end)) {
+        return Err(Error::Usage(format!(
+            "'{}': window '{}' spans frames {}..{}, not inside the movie's {} frames",
+            meta_path.display(),
+            w.name,
+            w.start,
+            w.end,
+            meta.frames
+        )));
+    }
+    if let Some(e) = meta.events.iter().find(|e| e.frame >= meta.frames) {
+        return Err(Error::Usage(format!(
+            "'{}': event '{}' at frame {} lies beyond the movie's {} frames",
+            meta_path.display(),
+            e.name,
+            e.frame,
+            meta.frames
+        )));
+    }
     Ok(Stimulus { movie, meta })
 }
 
@@ -60,4 +80,32 @@ pub fn read_movie(path: &Path) -> Result<Array3<f32>> {
         )));
     }
     Ok(movie)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::stimulus::{protocols, Canvas, Params};
+
+    #[test]
+    fn windows_and_events_outside_the_movie_are_refused() {
+        let c = Canvas { height: 3, width: 3, lags: 2, frame_rate_hz: 100.0, pixel_um: 50.0 };
+        let p = protocols::find("flashes").unwrap();
+        let params = Params::parse("flashes", p.specs(), &[]).unwrap();
+        let mut stim = Stimulus::assemble("flashes", &params, &c, 0, p.draw(&params, &c, 0).unwrap());
+        let d = tempfile::tempdir().unwrap();
+        write_stimulus(&stim, d.path()).unwrap();
+        assert!(read_stimulus(d.path()).is_ok());
+        let rewrite =
+            |m: &Meta| std::fs::write(d.path().join("stimulus.json"), serde_json::to_string(m).unwrap()).unwrap();
+        stim.meta.windows[1].end = stim.meta.frames + 5;
+        rewrite(&stim.meta);
+        let e = read_stimulus(d.path()).err().unwrap().to_string();
+        assert!(e.contains("not inside the movie"), "{e}");
+        stim.meta.windows[1].end = stim.meta.frames;
+        stim.meta.events[0].frame = stim.meta.frames;
+        rewrite(&stim.meta);
+        let e = read_stimulus(d.path()).err().unwrap().to_string();
+        assert!(e.contains("beyond the movie"), "{e}");
+    }
 }
