@@ -9,21 +9,15 @@
 mod common;
 #[path = "support/reference_model.rs"]
 mod reference_model;
+#[path = "support/timing.rs"]
+mod timing;
 
-use std::time::{Duration, Instant};
 use sufficit::attribution::{attribute, resolve_layers, Baseline, Request, Rule, Steps};
 use sufficit::model::{LoadOptions, Model};
 use sufficit::stimulus::{protocols, Canvas, Params, Stimulus};
+use timing::{median, peak_mib, samples};
 
 const REPEATS: usize = 5;
-
-fn peak_mib() -> f64 {
-    std::fs::read_to_string("/proc/self/status")
-        .ok()
-        .and_then(|s| s.lines().find(|l| l.starts_with("VmHWM:")).map(String::from))
-        .and_then(|l| l.split_whitespace().nth(1).and_then(|v| v.parse::<f64>().ok()))
-        .map_or(f64::NAN, |kb| kb / 1024.0)
-}
 
 fn main() {
     let dir = std::env::temp_dir().join(format!("sufficit-bench-attr-{}", std::process::id()));
@@ -58,16 +52,11 @@ fn main() {
             input_ig,
             seed: 1,
         };
-        let mut times: Vec<Duration> = Vec::new();
         let mut residual = 0.0;
-        for _ in 0..REPEATS {
-            let t = Instant::now();
-            let a = attribute(&model, &stim.movie, &req).expect("attribute");
-            times.push(t.elapsed());
-            residual = a.layers[0].residual;
-        }
-        times.sort();
-        let median = times[REPEATS / 2].as_secs_f64();
+        let times = samples(REPEATS, || {
+            residual = attribute(&model, &stim.movie, &req).expect("attribute").layers[0].residual;
+        });
+        let median = median(&times).as_secs_f64();
         let nominal = 2.0 * 64.0 * 100.0 * (forward + backward);
         println!(
             "{label:<24} median {median:.3} s (best {:.3} s)  direct-method work {:.0} GFLOP = {:.0} GFLOP/s  residual {residual:.1e}  peak memory {:.0} MiB",

@@ -8,51 +8,18 @@
 mod common;
 #[path = "support/reference_model.rs"]
 mod reference_model;
+#[path = "support/timing.rs"]
+mod timing;
 
 use ndarray::{ArrayD, IxDyn};
 use rand::rngs::ChaCha8Rng;
 use rand::{RngExt, SeedableRng};
-use std::time::{Duration, Instant};
+use std::time::Duration;
 use sufficit::model::{FastPath, LoadOptions, Model};
+use timing::{median, peak_mib, samples};
 
 const BATCH: usize = 64;
 const REPEATS: usize = 9;
-
-/// Median wall time of `REPEATS` runs after one warm-up.
-fn median(mut f: impl FnMut()) -> Duration {
-    f();
-    let mut t: Vec<Duration> = (0..REPEATS)
-        .map(|_| {
-            let s = Instant::now();
-            f();
-            s.elapsed()
-        })
-        .collect();
-    t.sort();
-    t[REPEATS / 2]
-}
-
-/// Fastest of `REPEATS` runs after one warm-up (a peak is a best case).
-fn fastest(mut f: impl FnMut()) -> Duration {
-    f();
-    (0..REPEATS)
-        .map(|_| {
-            let s = Instant::now();
-            f();
-            s.elapsed()
-        })
-        .min()
-        .expect("at least one run")
-}
-
-/// Peak resident memory of this process so far (Linux VmHWM), in MiB.
-fn peak_mib() -> f64 {
-    std::fs::read_to_string("/proc/self/status")
-        .ok()
-        .and_then(|s| s.lines().find(|l| l.starts_with("VmHWM:")).map(String::from))
-        .and_then(|l| l.split_whitespace().nth(1).and_then(|v| v.parse::<f64>().ok()))
-        .map_or(f64::NAN, |kb| kb / 1024.0)
-}
 
 /// GFLOP/s of the `gemm` crate on a square f32 product, with the given threads.
 fn gemm_peak(n: usize, threads: usize) -> f64 {
@@ -60,7 +27,7 @@ fn gemm_peak(n: usize, threads: usize) -> f64 {
     let b = vec![0.5f32; n * n];
     let mut c = vec![0f32; n * n];
     let par = if threads > 1 { gemm::Parallelism::Rayon(threads) } else { gemm::Parallelism::None };
-    let t = fastest(|| unsafe {
+    let t = samples(REPEATS, || unsafe {
         gemm::gemm(
             n,
             n,
@@ -82,7 +49,7 @@ fn gemm_peak(n: usize, threads: usize) -> f64 {
             false,
             par,
         )
-    });
+    })[0];
     2.0 * (n as f64).powi(3) / t.as_secs_f64() / 1e9
 }
 
@@ -106,31 +73,24 @@ fn main() {
     let forward_flop = conv1 + conv2 + dense;
     let backward_flop = conv1 + conv2 + dense;
 
-    let t_fwd_best = fastest(|| {
+    let fwd = samples(REPEATS, || {
         g.forward(x.clone(), &[]).expect("forward");
     });
-    let t_fb_best = fastest(|| {
+    let fb = samples(REPEATS, || {
         let tape = g.forward(x.clone(), &[]).expect("forward");
         let seed = ArrayD::from_elem(IxDyn(&[BATCH, 4]), 1.0f32);
         tape.gradients(&[(out, seed)], &[g.input, hidden]).expect("backward");
     });
-    let t_fwd = median(|| {
-        g.forward(x.clone(), &[]).expect("forward");
-    });
-    let t_fb = median(|| {
-        let tape = g.forward(x.clone(), &[]).expect("forward");
-        let seed = ArrayD::from_elem(IxDyn(&[BATCH, 4]), 1.0f32);
-        tape.gradients(&[(out, seed)], &[g.input, hidden]).expect("backward");
-    });
+    let (t_fwd, t_fwd_best, t_fb, t_fb_best) = (median(&fwd), fwd[0], median(&fb), fb[0]);
     let engine_peak = peak_mib();
     let fast = FastPath::new(&model).expect("tract plan");
-    let t_tract = median(|| {
+    let t_tract = median(&samples(REPEATS, || {
         fast.run(x.clone()).expect("tract forward");
-    });
+    }));
     let fixed = FastPath::with_batch(&model, BATCH).expect("tract plan");
-    let t_tract_fixed = median(|| {
+    let t_tract_fixed = median(&samples(REPEATS, || {
         fixed.run(x.clone()).expect("tract forward");
-    });
+    }));
     let tract_peak = peak_mib();
     let peak1 = gemm_peak(1024, 1);
     let peak2 = gemm_peak(1024, 2);
