@@ -16,7 +16,7 @@ pub use plot::{heatmap_svg, ranking_svg, rows_of};
 pub use quadrature::Rule;
 
 use crate::engine::ValueId;
-use crate::model::summary::Summary;
+use crate::model::summary::hidden_layer_values;
 use crate::model::Model;
 use crate::response::windows_at;
 use crate::{Error, Result, Tensor};
@@ -89,7 +89,7 @@ pub struct Attribution {
 
 /// The names of the model's attributable hidden layers, in graph order.
 pub fn hidden_layers(model: &Model) -> Vec<String> {
-    Summary::of(model).hidden_layers.into_iter().map(|h| h.name).collect()
+    hidden_layer_values(model).into_iter().map(|id| model.graph.values[id].name.clone()).collect()
 }
 
 /// Resolve `--layer` (a name, `auto` = the first hidden layer, or `all`) to value ids.

@@ -3,7 +3,7 @@
 //! receptive fields in input pixels and lags.
 
 use super::{InputBinding, InputLayout, Model};
-use crate::engine::Source;
+use crate::engine::{Source, ValueId};
 use serde::Serialize;
 
 /// The model input.
@@ -155,25 +155,34 @@ fn field_in_input(f: &Option<Field>, b: &InputBinding) -> ReceptiveField {
     }
 }
 
+/// The attributable hidden layers, in graph order: outputs of nonlinearities that follow a
+/// conv or dense layer, have channels (rank >= 2) and are not model outputs.
+pub fn hidden_layer_values(model: &Model) -> Vec<ValueId> {
+    let g = &model.graph;
+    let mut has_weights_upstream = vec![false; g.values.len()];
+    for node in &g.nodes {
+        has_weights_upstream[node.output] = matches!(node.op.name(), "Conv" | "Gemm" | "MatMul")
+            || node.inputs.iter().any(|&i| has_weights_upstream[i]);
+    }
+    g.nodes
+        .iter()
+        .filter(|n| n.op.is_nonlinearity() && !g.outputs.contains(&n.output) && has_weights_upstream[n.output])
+        .filter(|n| g.values[n.output].shape.len() >= 2)
+        .map(|n| n.output)
+        .collect()
+}
+
 impl Summary {
     /// Describe `model`.
     pub fn of(model: &Model) -> Summary {
         let g = &model.graph;
         let b = &model.binding;
         let fields = receptive_fields(model);
-        let output_ids: Vec<_> = g.outputs.clone();
-        let mut has_weights_upstream = vec![false; g.values.len()];
-        for node in &g.nodes {
-            has_weights_upstream[node.output] = matches!(node.op.name(), "Conv" | "Gemm" | "MatMul")
-                || node.inputs.iter().any(|&i| has_weights_upstream[i]);
-        }
-        let hidden_layers = g
-            .nodes
-            .iter()
-            .filter(|n| n.op.is_nonlinearity() && !output_ids.contains(&n.output) && has_weights_upstream[n.output])
-            .filter(|n| g.values[n.output].shape.len() >= 2)
-            .map(|n| {
-                let v = &g.values[n.output];
+        let hidden_layers = hidden_layer_values(model)
+            .into_iter()
+            .map(|id| {
+                let n = g.producer(id).expect("hidden layers are node outputs");
+                let v = &g.values[id];
                 HiddenLayer {
                     name: v.name.clone(),
                     op: n.op.name().into(),
