@@ -73,9 +73,8 @@ pub fn parse_units(model: &Model, spec: &str) -> Result<Vec<Unit>> {
 
 /// Every unit of every hidden layer.
 pub fn all_units(model: &Model) -> Vec<Unit> {
-    crate::attribution::hidden_layers(model)
-        .iter()
-        .filter_map(|n| model.graph.find(n))
+    crate::model::summary::hidden_layer_values(model)
+        .into_iter()
         .flat_map(|layer| (0..model.graph.values[layer].shape[1]).map(move |channel| Unit { layer, channel }))
         .collect()
 }
