@@ -25,11 +25,15 @@ impl OutputDir {
         &self.dir
     }
 
-    /// Write `name` atomically from a closure that fills a writer.
+    /// Write `name` (a file name, or a path inside the folder such as `units/a.npy`) atomically
+    /// from a closure that fills a writer.
     pub fn write_with(&self, name: &str, fill: impl FnOnce(&mut dyn Write) -> std::io::Result<()>) -> Result<()> {
         let target = self.dir.join(name);
-        let tmp = self.dir.join(format!(".{name}.tmp-{}", std::process::id()));
+        let parent = target.parent().unwrap_or(&self.dir).to_path_buf();
+        let file = target.file_name().map_or_else(|| name.into(), |f| f.to_string_lossy().into_owned());
+        let tmp = parent.join(format!(".{file}.tmp-{}", std::process::id()));
         let result = (|| {
+            std::fs::create_dir_all(&parent)?;
             let mut f = std::io::BufWriter::new(std::fs::File::create(&tmp)?);
             fill(&mut f)?;
             f.into_inner().map_err(|e| e.into_error())?.sync_all()?;

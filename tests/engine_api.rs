@@ -6,7 +6,7 @@
 use ndarray::{ArrayD, Axis, IxDyn};
 use std::path::Path;
 use sufficit::engine::batch::{chunk_len, join, map_chunks};
-use sufficit::engine::{Graph, Override, Source, ValueId};
+use sufficit::engine::{Graph, Override, Part, Source, ValueId};
 use sufficit::model::{LoadOptions, Model};
 
 fn model() -> Model {
@@ -92,7 +92,7 @@ fn clamping_a_channel_changes_the_output_and_blocks_its_gradient() {
     let c = free.value(hidden).shape()[1];
     // Clamp channel 1 of relu1 to a constant map, as ablation does.
     let shape = &g.values[hidden].shape;
-    let clamp = Override { value: hidden, channels: Some(vec![1]), with: ArrayD::from_elem(IxDyn(shape), 0.25) };
+    let clamp = Override { value: hidden, part: Part::Channels(vec![1]), with: ArrayD::from_elem(IxDyn(shape), 0.25) };
     let tape = g.forward(x.clone(), std::slice::from_ref(&clamp)).unwrap();
     let clamped = tape.value(hidden);
     assert!(clamped.index_axis(Axis(1), 1).iter().all(|&v| v == 0.25));

@@ -66,6 +66,9 @@ pub struct LayerAttribution {
     pub space: Tensor,
     /// |sum of conductances - (F(x) - F(x'))| / |F(x) - F(x')|.
     pub residual: f64,
+    /// Per channel: dF/dy summed over windows and positions and averaged along the path; its
+    /// sign says whether the unit excites (+) or inhibits (-) the target.
+    pub gradient: Vec<f64>,
 }
 
 /// Everything `attribute` computes.
@@ -146,8 +149,14 @@ fn residual(total: f64, df: f64) -> f64 {
     }
 }
 
-/// F(x), mean F(x'), per-layer conductance sums and input IG of one fixed-step attribution.
-type Once = (f64, f64, Vec<ndarray::ArrayD<f64>>, Option<Tensor>);
+/// One fixed-step attribution, averaged over the baselines.
+struct Once {
+    fx: f64,
+    fx0: f64,
+    sums: Vec<ndarray::ArrayD<f64>>,
+    ig: Option<Tensor>,
+    gradient: Vec<Vec<f64>>,
+}
 
 /// One attribution with a fixed step count, averaged over the baseline movies.
 /// Progress callback: (finished, total) work items of the current path integral.
@@ -168,6 +177,7 @@ fn once(
     let (mut fx, mut fx0) = (0.0, 0.0);
     let mut sums: Option<Vec<ndarray::ArrayD<f64>>> = None;
     let mut ig: Option<Tensor> = None;
+    let mut gradient: Vec<Vec<f64>> = Vec::new();
     for (b, x0) in baselines.iter().enumerate() {
         let job = PathJob {
             graph: &model.graph,
@@ -183,6 +193,12 @@ fn once(
         let r = integrate(&job, ends, b)?;
         fx = r.f_x.iter().sum();
         fx0 += r.f_x0.iter().sum::<f64>() / k;
+        if gradient.is_empty() {
+            gradient = r.gradient.iter().map(|l| vec![0.0; l.len()]).collect();
+        }
+        for (acc, l) in gradient.iter_mut().zip(&r.gradient) {
+            acc.iter_mut().zip(l).for_each(|(a, v)| *a += v / k);
+        }
         match &mut sums {
             None => sums = Some(r.conductance.into_iter().map(|c| c / k).collect()),
             Some(s) => s.iter_mut().zip(r.conductance).for_each(|(a, c)| *a += &(c / k)),
@@ -195,7 +211,7 @@ fn once(
             });
         }
     }
-    Ok((fx, fx0, sums.unwrap_or_default(), ig))
+    Ok(Once { fx, fx0, sums: sums.unwrap_or_default(), ig, gradient })
 }
 
 /// Attribute the target's response to hidden units (and optionally input pixels).
@@ -234,20 +250,20 @@ pub fn attribute_with_progress(
         Steps::Fixed(n) => (n.max(1), None),
         Steps::Auto(t) => (16, Some(t)),
     };
-    let (fx, fx0, sums, ig) = loop {
-        let (fx, fx0, sums, ig) = once(model, &x, &baselines, &ends, &seed, req, steps, progress)?;
-        let Some(tol) = tolerance else { break (fx, fx0, sums, ig) };
-        let mut worst = sums.iter().map(|c| residual(c.sum(), fx - fx0)).fold(0.0, f64::max);
-        if let Some(a) = &ig {
-            worst = worst.max(residual(a.iter().map(|&v| v as f64).sum(), fx - fx0));
+    let Once { fx, fx0, sums, ig, gradient } = loop {
+        let r = once(model, &x, &baselines, &ends, &seed, req, steps, progress)?;
+        let Some(tol) = tolerance else { break r };
+        let mut worst = r.sums.iter().map(|c| residual(c.sum(), r.fx - r.fx0)).fold(0.0, f64::max);
+        if let Some(a) = &r.ig {
+            worst = worst.max(residual(a.iter().map(|&v| v as f64).sum(), r.fx - r.fx0));
         }
         if worst <= tol {
-            break (fx, fx0, sums, ig);
+            break r;
         }
         if steps >= 1024 {
             warnings
                 .push(format!("the completeness residual {worst:.2e} is above the tolerance {tol} after 1,024 steps"));
-            break (fx, fx0, sums, ig);
+            break r;
         }
         steps *= 2;
     };
@@ -255,7 +271,8 @@ pub fn attribute_with_progress(
         .layers
         .iter()
         .zip(&sums)
-        .map(|(&l, c)| {
+        .zip(gradient)
+        .map(|((&l, c), gradient)| {
             let channels = c.shape()[1];
             let total: Vec<f64> = (0..channels).map(|ch| c.index_axis(Axis(1), ch).sum()).collect();
             let mut time = Array2::<f32>::zeros((channels, frames));
@@ -272,6 +289,7 @@ pub fn attribute_with_progress(
                 total,
                 time,
                 space,
+                gradient,
             }
         })
         .collect();

@@ -91,6 +91,9 @@ pub struct PathResult {
     pub conductance: Vec<ndarray::ArrayD<f64>>,
     /// Input integrated gradients, model-input shaped, when asked for.
     pub input_ig: Option<Tensor>,
+    /// Per layer and channel: dF/dy summed over windows and positions, averaged along the path
+    /// (the sign of a unit's effect on the target).
+    pub gradient: Vec<Vec<f64>>,
 }
 
 /// Repeat the seed for every sample of a batch of `n` windows.
@@ -167,7 +170,7 @@ pub fn integrate(job: &PathJob, ends: &Endpoints, baseline: usize) -> Result<Pat
         .collect();
     let h = 1.0 / job.steps as f64;
 
-    type Partial = (std::ops::Range<usize>, Vec<ndarray::ArrayD<f64>>, Option<ndarray::ArrayD<f64>>);
+    type Partial = (std::ops::Range<usize>, Vec<ndarray::ArrayD<f64>>, Option<ndarray::ArrayD<f64>>, Vec<Vec<f64>>);
     let done = std::sync::atomic::AtomicUsize::new(0);
     let partials: Vec<Partial> = items
         .par_iter()
@@ -216,8 +219,9 @@ pub fn integrate(job: &PathJob, ends: &Endpoints, baseline: usize) -> Result<Pat
                 cond.push(Zip::from(&grads[li]).and(&dy).map_collect(|&gv, &d| gv as f64 * d as f64));
             }
             let gz = job.input_ig.then(|| fold_blocks(&grads[job.layers.len()], m, &[weight]));
+            let slope = grads[..job.layers.len()].iter().map(|gl| channel_sums(gl, weight)).collect();
             (job.progress)(done.fetch_add(1, std::sync::atomic::Ordering::Relaxed) + 1, items.len());
-            Ok((range.clone(), cond, gz))
+            Ok((range.clone(), cond, gz, slope))
         })
         .collect::<Result<_>>()?;
 
@@ -236,7 +240,11 @@ pub fn integrate(job: &PathJob, ends: &Endpoints, baseline: usize) -> Result<Pat
         shape[0] = n;
         ndarray::ArrayD::<f64>::zeros(IxDyn(&shape))
     });
-    for (range, cond, gz) in partials {
+    let mut gradient: Vec<Vec<f64>> = job.layers.iter().map(|&l| vec![0.0; g.values[l].shape[1]]).collect();
+    for (range, cond, gz, slope) in partials {
+        for (acc, s) in gradient.iter_mut().zip(slope) {
+            acc.iter_mut().zip(s).for_each(|(a, v)| *a += v);
+        }
         for (acc, c) in conductance.iter_mut().zip(cond) {
             let mut part = acc.slice_axis_mut(Axis(0), range.clone().into());
             part += &c;
@@ -258,5 +266,10 @@ pub fn integrate(job: &PathJob, ends: &Endpoints, baseline: usize) -> Result<Pat
             Some(&dx * &gx)
         }
     };
-    Ok(PathResult { f_x, f_x0, conductance, input_ig })
+    Ok(PathResult { f_x, f_x0, conductance, input_ig, gradient })
+}
+
+/// `weight` times the sum of `t` over every axis but the channel axis (1).
+fn channel_sums(t: &Tensor, weight: f64) -> Vec<f64> {
+    (0..t.shape()[1]).map(|c| weight * t.index_axis(Axis(1), c).iter().map(|&v| v as f64).sum::<f64>()).collect()
 }

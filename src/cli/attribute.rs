@@ -54,7 +54,7 @@ fn parse_cells(s: &str) -> Result<Vec<(usize, f32)>> {
         .collect()
 }
 
-fn parse_frames(spec: Option<&str>, meta: &Meta) -> Result<Vec<usize>> {
+pub(super) fn parse_frames(spec: Option<&str>, meta: &Meta) -> Result<Vec<usize>> {
     let Some(spec) = spec else {
         let p = protocols::find(&meta.protocol)?;
         let mut frames: Vec<usize> = meta.windows_named(p.target_window()).flat_map(|w| w.start..w.end).collect();
@@ -85,13 +85,21 @@ fn parse_frames(spec: Option<&str>, meta: &Meta) -> Result<Vec<usize>> {
 }
 
 fn units_json(a: &Attribution) -> Vec<serde_json::Value> {
-    let mut units: Vec<(String, usize, f64)> =
-        a.layers.iter().flat_map(|l| l.total.iter().enumerate().map(move |(c, &v)| (l.name.clone(), c, v))).collect();
+    let mut units: Vec<(String, usize, f64, f64)> = a
+        .layers
+        .iter()
+        .flat_map(|l| l.total.iter().zip(&l.gradient).enumerate().map(move |(c, (&v, &g))| (l.name.clone(), c, v, g)))
+        .collect();
     units.sort_by(|x, y| y.2.abs().total_cmp(&x.2.abs()));
+    // "sign": of the conductance (did the unit move the target up or down); "effect": of the
+    // path-averaged gradient (does the unit excite or inhibit the target).
     units
         .iter()
         .enumerate()
-        .map(|(r, (layer, c, v))| json!({"layer": layer, "channel": c, "conductance": v, "rank": r + 1, "sign": if *v >= 0.0 { 1 } else { -1 }}))
+        .map(|(r, (layer, c, v, g))| {
+            json!({"layer": layer, "channel": c, "conductance": v, "rank": r + 1,
+            "sign": if *v >= 0.0 { 1 } else { -1 }, "effect": if *g >= 0.0 { "excitatory" } else { "inhibitory" }})
+        })
         .collect()
 }
 

@@ -1,7 +1,7 @@
 //! `sufficit knockout MODEL STIMULUS_DIR --cell C [--units L:c,...] --out DIR`.
 
 use crate::output::{OutputDir, RunRecord};
-use crate::reduction::knockout::knockouts;
+use crate::reduction::knockout::{knockouts, Effect};
 use crate::reduction::{all_units, parse_units, Clamp};
 use crate::response::{measure::json as num, rf_centres};
 use crate::Result;
@@ -24,6 +24,9 @@ pub struct KnockoutArgs {
     /// What a silenced unit is clamped to: baseline (its activation under gray), mean or zero.
     #[arg(long, default_value = "baseline")]
     pub clamp: String,
+    /// Frames judged, START:END (frames, or ms with an ms suffix). Default: the protocol's window.
+    #[arg(long)]
+    pub window: Option<String>,
 }
 
 /// Silence units, measure, rank, write knockouts.json and knockouts.csv.
@@ -45,17 +48,43 @@ pub fn run(a: &KnockoutArgs) -> Result<()> {
     let record = RunRecord::new(
         "knockout",
         Some(&a.job.model),
-        json!({"stimulus": a.job.stimulus.display().to_string(), "cell": a.cell, "units": a.units, "clamp": a.clamp}),
+        json!({"stimulus": a.job.stimulus.display().to_string(), "cell": a.cell, "units": a.units, "clamp": a.clamp, "window": a.window}),
         a.job.common.seed,
     )?;
     let bar = super::progress_bar(a.job.common.quiet, sets.len() as u64, "knock-outs");
     let centres = rf_centres(&model, a.job.common.seed)?;
-    let effects = knockouts(&model, &stim, a.cell, &sets, clamp, &centres, &|| bar.inc(1))?;
+    let frames = super::attribute::parse_frames(a.window.as_deref(), &stim.meta)?;
+    let effects = knockouts(&model, &stim, a.cell, &frames, &sets, clamp, &centres, &|| bar.inc(1))?;
     bar.finish_and_clear();
 
     let out = OutputDir::create(&a.job.out)?;
+    write_knockouts(&out, &effects, &stim.meta.protocol, a.cell, &a.clamp)?;
+    let mut record = record;
+    record.timings = vec![("total".into(), t0.elapsed().as_secs_f64())];
+    out.write_json("run.json", &record)?;
+    if !a.job.common.quiet {
+        if let Some(top) = effects.first() {
+            println!(
+                "strongest knock-out: {} (relative change {:.3}); results in {}",
+                top.units.join(" + "),
+                top.relative_rms_change,
+                a.job.out.display()
+            );
+        }
+    }
+    Ok(())
+}
+
+/// Write `knockouts.csv` and `knockouts.json` (ranked effects) into `out`.
+pub(super) fn write_knockouts(
+    out: &OutputDir,
+    effects: &[Effect],
+    protocol: &str,
+    cell: usize,
+    clamp: &str,
+) -> Result<()> {
     let mut csv = String::from("rank,units,relative_rms_change,fraction_variance_explained,mean_full,mean_silenced\n");
-    for e in &effects {
+    for e in effects {
         csv += &format!(
             "{},{},{},{},{},{}\n",
             e.rank,
@@ -78,22 +107,9 @@ pub fn run(a: &KnockoutArgs) -> Result<()> {
         .collect();
     out.write_json(
         "knockouts.json",
-        &json!({"schema": "sufficit/1", "protocol": stim.meta.protocol, "cell": a.cell, "clamp": a.clamp,
+        &json!({"schema": "sufficit/1", "protocol": protocol, "cell": cell, "clamp": clamp,
             "caution": "Model-derived candidates: hypotheses for experiments, not findings. Animal work follows local ethics approval.",
             "knockouts": rows}),
     )?;
-    let mut record = record;
-    record.timings = vec![("total".into(), t0.elapsed().as_secs_f64())];
-    out.write_json("run.json", &record)?;
-    if !a.job.common.quiet {
-        if let Some(top) = effects.first() {
-            println!(
-                "strongest knock-out: {} (relative change {:.3}); results in {}",
-                top.units.join(" + "),
-                top.relative_rms_change,
-                a.job.out.display()
-            );
-        }
-    }
     Ok(())
 }

@@ -4,6 +4,7 @@
 mod attribute;
 mod inspect;
 mod knockout;
+mod reduce;
 mod respond;
 mod stimulus;
 
@@ -35,6 +36,9 @@ pub enum Command {
     Attribute(attribute::AttributeArgs),
     /// Silence hidden units one at a time and rank their effect on a cell's response and metrics.
     Knockout(knockout::KnockoutArgs),
+    /// Cut the network down to the smallest set of hidden units that keeps a cell's response,
+    /// read their filters and nonlinearities, and export the pruned model.
+    Reduce(reduce::ReduceArgs),
 }
 
 /// Options every working command takes.
@@ -153,6 +157,10 @@ pub fn run(cli: Cli) -> Result<()> {
         Command::Knockout(a) => {
             a.job.common.apply()?;
             knockout::run(&a)
+        }
+        Command::Reduce(a) => {
+            a.job.common.apply()?;
+            reduce::run(&a)
         }
     }
 }

@@ -10,4 +10,4 @@ pub mod ops;
 mod run;
 
 pub use graph::{Graph, Node, Source, Value, ValueId};
-pub use run::{Override, Tape};
+pub use run::{Override, Part, Tape};

@@ -5,15 +5,26 @@ use super::ops::BackwardArgs;
 use crate::{Error, Result, Tensor};
 use ndarray::{Axis, IxDyn, Zip};
 
-/// Replace part of a value during forward: the given channels (axis 1), or all of it, take the
-/// values of `with` (broadcast to the value's shape). Gradients do not flow through replaced
-/// entries, since they no longer depend on the input.
+/// Which entries of a value an [`Override`] replaces.
+#[derive(Debug, Clone)]
+pub enum Part {
+    /// All of it.
+    Whole,
+    /// These channels (axis 1).
+    Channels(Vec<usize>),
+    /// Entries where this mask (0 or 1, broadcastable to the value, e.g. `[1, C, H, W]`) is 1.
+    Mask(Tensor),
+}
+
+/// Replace part of a value during forward: the entries chosen by `part` take the values of
+/// `with` (broadcast to the value's shape). Gradients do not flow through replaced entries,
+/// since they no longer depend on the input.
 #[derive(Debug, Clone)]
 pub struct Override {
     /// The value to change.
     pub value: ValueId,
-    /// Channels to replace; `None` replaces the whole value.
-    pub channels: Option<Vec<usize>>,
+    /// Which entries.
+    pub part: Part,
     /// Replacement, broadcastable to the value's shape (e.g. `[1, C, H, W]` for every sample).
     pub with: Tensor,
 }
@@ -21,16 +32,16 @@ pub struct Override {
 impl Override {
     fn apply(&self, t: &mut Tensor, graph: &Graph) -> Result<()> {
         let name = &graph.values[self.value].name;
-        let src = self.with.broadcast(IxDyn(t.shape())).ok_or_else(|| {
+        let misfit = |what: &str, shape: &[usize]| {
             Error::Usage(format!(
-                "override of '{name}': replacement of shape {:?} does not fit the value's shape {:?}",
-                self.with.shape(),
+                "override of '{name}': {what} of shape {shape:?} does not fit the value's shape {:?}",
                 t.shape()
             ))
-        })?;
-        match &self.channels {
-            None => t.assign(&src),
-            Some(chs) => {
+        };
+        let src = self.with.broadcast(IxDyn(t.shape())).ok_or_else(|| misfit("replacement", self.with.shape()))?;
+        match &self.part {
+            Part::Whole => t.assign(&src),
+            Part::Channels(chs) => {
                 let c = t.shape().get(1).copied().unwrap_or(0);
                 for &ch in chs {
                     if ch >= c {
@@ -41,19 +52,36 @@ impl Override {
                     t.index_axis_mut(Axis(1), ch).assign(&src.index_axis(Axis(1), ch));
                 }
             }
+            Part::Mask(m) => {
+                let m = m.broadcast(IxDyn(t.shape())).ok_or_else(|| misfit("mask", m.shape()))?;
+                Zip::from(t.view_mut()).and(&m).and(&src).for_each(|v, &k, &s| {
+                    if k != 0.0 {
+                        *v = s
+                    }
+                });
+            }
         }
         Ok(())
     }
 
     /// Zero the gradient entries this override cut off from upstream.
     fn block(&self, g: &mut Tensor) {
-        match &self.channels {
-            None => g.fill(0.0),
-            Some(chs) => {
+        match &self.part {
+            Part::Whole => g.fill(0.0),
+            Part::Channels(chs) => {
                 for &ch in chs {
                     if ch < g.shape().get(1).copied().unwrap_or(0) {
                         g.index_axis_mut(Axis(1), ch).fill(0.0);
                     }
+                }
+            }
+            Part::Mask(m) => {
+                if let Some(m) = m.broadcast(IxDyn(g.shape())) {
+                    Zip::from(g.view_mut()).and(&m).for_each(|v, &k| {
+                        if k != 0.0 {
+                            *v = 0.0
+                        }
+                    });
                 }
             }
         }

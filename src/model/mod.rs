@@ -2,6 +2,7 @@
 //! parts that do not depend on the stimulus, bind the input layout, and produce both our
 //! differentiable [`Graph`](crate::engine::Graph) and tract's optimised forward plan.
 
+pub mod builder;
 mod fast;
 pub mod layout;
 mod load;

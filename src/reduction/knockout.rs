@@ -55,24 +55,33 @@ fn cell_metrics(summary: &Value, cell: usize) -> Vec<(String, f64)> {
     out
 }
 
-/// Silence each set in `sets`, measure, and rank by relative RMS change (largest first).
+/// The frames of the protocol's own analysis window (its target window), in order.
+pub fn target_frames(stim: &Stimulus) -> Result<Vec<usize>> {
+    let protocol = protocols::find(&stim.meta.protocol)?;
+    let mut frames: Vec<usize> =
+        stim.meta.windows_named(protocol.target_window()).flat_map(|w| w.start..w.end).collect();
+    frames.sort_unstable();
+    frames.dedup();
+    Ok(frames)
+}
+
+/// Silence each set in `sets`, measure, and rank by relative RMS change (largest first) over the
+/// analysis `frames`.
+#[allow(clippy::too_many_arguments)]
 pub fn knockouts(
     model: &Model,
     stim: &Stimulus,
     cell: usize,
+    frames: &[usize],
     sets: &[Vec<Unit>],
     clamp: Clamp,
     rf_centres: &[(f64, f64)],
     progress: &(dyn Fn() + Sync),
 ) -> Result<Vec<Effect>> {
     let protocol = protocols::find(&stim.meta.protocol)?;
-    let mut frames: Vec<usize> =
-        stim.meta.windows_named(protocol.target_window()).flat_map(|w| w.start..w.end).collect();
-    frames.sort_unstable();
-    frames.dedup();
     if frames.is_empty() {
         return Err(Error::Usage(format!(
-            "the stimulus has no '{}' analysis window to judge knock-outs by",
+            "the stimulus has no '{}' analysis window to judge knock-outs by; give one with --window START:END",
             protocol.target_window()
         )));
     }

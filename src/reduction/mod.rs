@@ -2,9 +2,18 @@
 //! convolutional layer); silencing it clamps it to its activation under the baseline stimulus
 //! (the counterfactual attribution uses), to its mean over the stimulus, or to zero.
 
+pub mod circuit;
+pub mod edges;
+pub mod export;
+pub mod fidelity;
+pub mod filters;
 pub mod knockout;
+pub mod nonlinearity;
+pub mod plot;
+pub mod readout;
+pub mod search;
 
-use crate::engine::{Override, ValueId};
+use crate::engine::{Override, Part, ValueId};
 use crate::model::Model;
 use crate::response::windows_at;
 use crate::{Error, Result, Tensor};
@@ -85,7 +94,7 @@ pub fn label(model: &Model, u: &Unit) -> String {
 }
 
 /// The value each layer is clamped to, `[1, C, spatial...]` (one sample, broadcast to all).
-fn clamp_value(model: &Model, movie: &Array3<f32>, layer: ValueId, clamp: Clamp) -> Result<Tensor> {
+pub(crate) fn clamp_value(model: &Model, movie: &Array3<f32>, layer: ValueId, clamp: Clamp) -> Result<Tensor> {
     let g = &model.graph;
     let b = &model.binding;
     Ok(match clamp {
@@ -115,7 +124,7 @@ pub fn silence(model: &Model, movie: &Array3<f32>, units: &[Unit], clamp: Clamp)
         .map(|layer| {
             Ok(Override {
                 value: layer,
-                channels: Some(units.iter().filter(|u| u.layer == layer).map(|u| u.channel).collect()),
+                part: Part::Channels(units.iter().filter(|u| u.layer == layer).map(|u| u.channel).collect()),
                 with: clamp_value(model, movie, layer, clamp)?,
             })
         })
