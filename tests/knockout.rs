@@ -74,3 +74,18 @@ fn bad_units_are_refused_with_what_exists() {
     assert!(parse_units(&m, "r").is_err());
     assert!(Clamp::parse("loud").is_err());
 }
+
+#[test]
+fn rates_from_the_cached_prefix_equal_full_forward_passes() {
+    let d = tempfile::tempdir().unwrap();
+    let m = model_with_dead_channel(d.path());
+    let s = flashes(&m);
+    let prefix = sufficit::response::PrefixRates::new(&m, &s.movie).unwrap();
+    let units = parse_units(&m, "r:0").unwrap();
+    for overrides in [vec![], silence(&m, &s.movie, &units, Clamp::Zero).unwrap()] {
+        let cached = prefix.rates_with(&overrides).unwrap();
+        let full = rates_with(&m, &s.movie, &overrides, &|_| {}).unwrap();
+        let err = cached.iter().zip(&full).fold(0f32, |e, (a, b)| e.max((a - b).abs()));
+        assert!(err < 1e-6, "cached prefix differs by {err}");
+    }
+}

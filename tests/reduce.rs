@@ -243,3 +243,42 @@ fn reduce_refuses_bad_requests_with_clear_messages() {
     assert!(!ok && text.contains("no analysis window") && text.contains("--window"), "{text}");
     assert!(!out.exists(), "a refused run must not create its output folder");
 }
+
+#[test]
+fn exported_reduced_model_runs_the_same_in_onnxruntime() {
+    // Outside reference: onnxruntime (scripts/check_reduced_onnxruntime.py, versions recorded in
+    // the fixture) runs a reduced.onnx that sufficit exported from the planted circuit.
+    let fixtures = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/reduced");
+    let d = tempfile::tempdir().unwrap();
+    let (model, stim, window) = setup(d.path());
+    let out = d.path().join("r");
+    let (ok, text) = reduce_cli(&model, &stim, &out, &["--layer", "all", "--window", &window]);
+    assert!(ok, "{text}");
+    let fresh = out.join("reduced.onnx");
+    let st = sufficit::stimulus::read_stimulus(&stim).unwrap();
+    let first: usize = window.split_once(':').unwrap().0.parse().unwrap();
+    let ends: Vec<usize> = (0..8).map(|k| first + 7 * k).collect();
+    let x = sufficit::response::windows_at(&st.movie, planted::LAGS, &ends);
+    if std::env::var_os("SUFFICIT_WRITE_FIXTURES").is_some() {
+        std::fs::create_dir_all(&fixtures).unwrap();
+        std::fs::copy(&fresh, fixtures.join("planted_reduced.onnx")).unwrap();
+        ndarray_npy::write_npy(fixtures.join("input.npy"), &x).unwrap();
+        return;
+    }
+    let reference = json(&fixtures.join("onnxruntime.json"));
+    let ort: Vec<f64> = reference["output"].as_array().unwrap().iter().map(|v| v.as_f64().unwrap()).collect();
+    let input: ndarray::Array4<f32> = read_npy(fixtures.join("input.npy")).unwrap();
+    let run = |p: &Path| -> Vec<f64> {
+        let m = sufficit::model::Model::load(p, &Default::default()).unwrap();
+        let t = m.graph.forward(input.clone().into_dyn(), &[]).unwrap();
+        t.outputs()[0].iter().map(|&v| v as f64).collect()
+    };
+    let scale = ort.iter().fold(0f64, |m, v| m.max(v.abs()));
+    for (label, ours) in
+        [("committed export", run(&fixtures.join("planted_reduced.onnx"))), ("fresh export", run(&fresh))]
+    {
+        assert_eq!(ours.len(), ort.len());
+        let err = ours.iter().zip(&ort).fold(0f64, |e, (a, b)| e.max((a - b).abs() / scale));
+        assert!(err < 1e-5, "{label}: engine vs onnxruntime relative difference {err}");
+    }
+}

@@ -147,7 +147,9 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
     let t_reduce = t2.elapsed().as_secs_f64();
     bar.set_message("circuit edges and filters");
     let t3 = Instant::now();
-    let edge_list = edges(&model, &stim.movie, a.cell, &frames, &circuit, att.steps.min(64))?;
+    let edge_list = edges(&model, &stim.movie, a.cell, &frames, &circuit, att.steps.min(16))?;
+    let t_edges = t3.elapsed().as_secs_f64();
+    let t3 = Instant::now();
     let units = read_out(&model, &stim.movie, &frames, &circuit, &layer_ids, &att.layers, att.steps)?;
     let t_read = t3.elapsed().as_secs_f64();
     bar.set_message("knock-outs of the kept units");
@@ -255,7 +257,8 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
         ("load".into(), t1.duration_since(t0).as_secs_f64()),
         ("attribution".into(), t_attr),
         ("search".into(), t_reduce),
-        ("edges_and_filters".into(), t_read),
+        ("edges".into(), t_edges),
+        ("filters_and_nonlinearities".into(), t_read),
         ("knockouts".into(), t_knock),
         ("total".into(), t0.elapsed().as_secs_f64()),
     ];
@@ -273,8 +276,10 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
     Ok(())
 }
 
-/// Run the exported model on the analysis windows with the engine and with tract; return the
-/// largest relative difference from the clamped reduced response for each.
+/// Run the exported model with the engine on every analysis window, and with tract on up to 16
+/// of them (4 at a time: tract's convolution buffers grow with the batch); return each one's
+/// largest difference from the clamped reduced response, relative to that response's largest
+/// magnitude (NaN if any output is not a number).
 fn check_export(
     path: &std::path::Path,
     model: &Model,
@@ -286,15 +291,38 @@ fn check_export(
     let layout = Some(model.binding.layout);
     let exported = Model::load(path, &LoadOptions { layout, dims: vec![] })?;
     let b = &exported.binding;
-    let x = b.to_model_input(crate::response::windows_at(movie, b.lags, frames));
     let scale = reduced.iter().fold(0.0f64, |m, v| m.max(v.abs())).max(1e-12);
-    let diff = |out: &crate::Tensor| -> f64 {
-        let per = out.len() / frames.len().max(1);
+    let worst = |a: f64, v: f64| if a.is_nan() || v.is_nan() { f64::NAN } else { a.max(v) };
+    // Largest relative difference over windows `which` (indices into `frames`) of output `out`.
+    let diff = |out: &crate::Tensor, which: &[usize]| -> f64 {
+        let per = out.len() / which.len().max(1);
         let flat = out.as_standard_layout();
         let flat = flat.as_slice().unwrap_or(&[]);
-        reduced.iter().enumerate().map(|(s, r)| (flat[s * per + cell] as f64 - r).abs() / scale).fold(0.0, f64::max)
+        which
+            .iter()
+            .enumerate()
+            .map(|(s, &i)| (flat[s * per + cell] as f64 - reduced[i]).abs() / scale)
+            .fold(0.0, worst)
     };
-    let engine = diff(exported.graph.forward(x.clone(), &[])?.outputs()[0]);
-    let tract = crate::model::FastPath::with_batch(&exported, frames.len())?.run(x)?;
-    Ok((engine, diff(&tract[0])))
+    let all: Vec<usize> = (0..frames.len()).collect();
+    let x = b.to_model_input(crate::response::windows_at(movie, b.lags, frames));
+    let engine = diff(exported.graph.forward(x, &[])?.outputs()[0], &all);
+    let some: Vec<usize> = (0..frames.len()).step_by(frames.len().div_ceil(16).max(1)).collect();
+    let tract_path = crate::model::FastPath::with_batch(&exported, 4)?;
+    let mut tract = 0.0;
+    for group in some.chunks(4) {
+        let mut ends: Vec<usize> = group.iter().map(|&i| frames[i]).collect();
+        let real = ends.len();
+        ends.resize(4, ends[0]);
+        let out = tract_path.run(b.to_model_input(crate::response::windows_at(movie, b.lags, &ends)))?;
+        let per = out[0].len() / 4;
+        let kept = out[0]
+            .as_standard_layout()
+            .into_owned()
+            .into_shape_with_order((4, per))
+            .map_err(|e| Error::Usage(e.to_string()))?;
+        let rows = kept.slice(ndarray::s![..real, ..]).to_owned().into_dyn();
+        tract = worst(tract, diff(&rows, group));
+    }
+    Ok((engine, tract))
 }

@@ -426,18 +426,22 @@ fn export_proto(
             })
         })
         .collect();
-    let dims: Vec<pb::tensor_shape_proto::Dimension> = shape
-        .iter()
-        .enumerate()
-        .map(|(k, &d)| pb::tensor_shape_proto::Dimension {
-            value: Some(if k == 0 {
-                dimension::Value::DimParam("N".into())
-            } else {
-                dimension::Value::DimValue(d as i64)
-            }),
-            ..Default::default()
-        })
-        .collect();
+    // Batch-symbolic dims: `N` first, then the value's own.
+    let batch_dims = |shape: &[usize]| -> Vec<pb::tensor_shape_proto::Dimension> {
+        shape
+            .iter()
+            .enumerate()
+            .map(|(k, &d)| pb::tensor_shape_proto::Dimension {
+                value: Some(if k == 0 {
+                    dimension::Value::DimParam("N".into())
+                } else {
+                    dimension::Value::DimValue(d as i64)
+                }),
+                ..Default::default()
+            })
+            .collect()
+    };
+    let dims = batch_dims(shape);
     let tensor_type = |shape: Option<pb::TensorShapeProto>| pb::TypeProto {
         value: Some(pb::type_proto::Value::TensorType(pb::type_proto::Tensor {
             elem_type: DataType::Float as i32,
@@ -458,7 +462,7 @@ fn export_proto(
             .iter()
             .map(|&o| pb::ValueInfoProto {
                 name: values[o].name.clone(),
-                r#type: Some(tensor_type(None)),
+                r#type: Some(tensor_type(Some(pb::TensorShapeProto { dim: batch_dims(&values[o].shape) }))),
                 ..Default::default()
             })
             .collect(),

@@ -63,16 +63,16 @@ pub fn edges(
         seed.as_slice_mut().ok_or_else(|| Error::Usage("output layout".into()))?[s * per_cell + cell] = 1.0;
     }
     let h = 1.0 / steps as f64;
+    let path = super::gray_path::GrayPath::new(g, &x)?;
     // Per step: conductance of each kept unit, and the flow from each kept lower unit to each kept upper unit.
     type Sums = (Vec<Vec<f64>>, Vec<Vec<Vec<f64>>>);
     let per_step: Vec<Sums> = (0..steps)
         .into_par_iter()
         .map(|k| -> Result<Sums> {
             let a = (k as f64 + 0.5) * h;
-            let at = |t: f64| x.mapv(|v| v * t as f32);
-            let tape = g.forward(at(a), &overrides)?;
-            let lo = g.forward_to(vec![(g.input, at(a - h / 2.0))], &ids, &overrides)?;
-            let hi = g.forward_to(vec![(g.input, at(a + h / 2.0))], &ids, &overrides)?;
+            let tape = g.forward_from(vec![(path.start, path.at(a))], &overrides)?;
+            let lo = g.forward_to(vec![(path.start, path.at(a - h / 2.0))], &ids, &overrides)?;
+            let hi = g.forward_to(vec![(path.start, path.at(a + h / 2.0))], &ids, &overrides)?;
             let dy: Vec<Tensor> = ids.iter().map(|&l| hi.value(l) - lo.value(l)).collect();
             let grads = tape.gradients(&[(out, seed.clone())], &ids)?;
             let cond: Vec<Vec<f64>> = layers

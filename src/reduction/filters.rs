@@ -3,6 +3,7 @@
 //! effective filter, the gradient of its activation at its most relevant position with respect
 //! to the stimulus, averaged along the path from gray and over the analysis windows.
 
+use super::gray_path::{batch_sum, GrayPath};
 use crate::engine::{Override, ValueId};
 use crate::model::{InputLayout, Model};
 use crate::response::windows_at;
@@ -128,55 +129,53 @@ pub fn hot_position(space: &Tensor, c: usize) -> usize {
         .0
 }
 
-/// One position of one channel of a hidden layer.
-#[derive(Debug, Clone, Copy)]
-pub struct Site {
-    /// The layer.
-    pub layer: ValueId,
-    /// The channel.
-    pub channel: usize,
-    /// Flat index into the layer's spatial axes.
-    pub position: usize,
-}
-
-/// The effective filter of the unit at `site`: d y / d stimulus averaged over `steps` midpoints
-/// of the path from gray and over the windows ending at `frames`, with `overrides` (the reduced
-/// circuit) in place. Returned as `[lags, height, width]`.
-pub fn effective_filter(
+/// The effective filters of channels `sites` (channel, flat position) of `layer`: for each,
+/// d y / d stimulus averaged over `steps` midpoints of `path` (gray to the analysis windows) and
+/// over the windows, with `overrides` (the reduced circuit) in place. One forward pass per step
+/// serves every site. Each filter is `[lags, height, width]`.
+pub fn effective_filters(
     model: &Model,
-    movie: &Array3<f32>,
-    frames: &[usize],
-    site: Site,
+    path: &GrayPath,
+    layer: ValueId,
+    sites: &[(usize, usize)],
     overrides: &[Override],
     steps: usize,
-) -> Result<Array3<f32>> {
-    let Site { layer, channel: c, position: pos } = site;
+) -> Result<Vec<Array3<f32>>> {
     let g = &model.graph;
-    let b = &model.binding;
-    let x = b.to_model_input(windows_at(movie, b.lags, frames));
-    let n = x.shape()[0];
+    let n = path.windows();
     let mut shape = g.values[layer].shape.clone();
     shape[0] = n;
     let per: usize = shape[2..].iter().product();
-    let mut seed = Tensor::zeros(IxDyn(&shape));
-    {
-        let flat = seed.as_slice_mut().ok_or_else(|| Error::Usage("layer layout".into()))?;
-        for s in 0..n {
-            flat[(s * shape[1] + c) * per + pos] = 1.0 / (n * steps) as f32;
+    let seeds: Vec<Tensor> = sites
+        .iter()
+        .map(|&(c, pos)| {
+            let mut seed = Tensor::zeros(IxDyn(&shape));
+            if let Some(flat) = seed.as_slice_mut() {
+                for s in 0..n {
+                    flat[(s * shape[1] + c) * per + pos] = 1.0 / (n * steps) as f32;
+                }
+            }
+            seed
+        })
+        .collect();
+    let mut acc: Vec<Option<Tensor>> = vec![None; sites.len()];
+    for k in 0..steps {
+        let a = (k as f64 + 0.5) / steps as f64;
+        let tape = g.forward_to(vec![(path.start, path.at(a))], &[layer], overrides)?;
+        for (slot, seed) in acc.iter_mut().zip(&seeds) {
+            let grad = batch_sum(&tape.gradients(&[(layer, seed.clone())], &[path.start])?.remove(0));
+            *slot = Some(match slot.take() {
+                None => grad,
+                Some(prev) => prev + grad,
+            });
         }
     }
-    let mut acc: Option<Tensor> = None;
-    for k in 0..steps {
-        let a = (k as f32 + 0.5) / steps as f32;
-        let tape = g.forward_to(vec![(g.input, x.mapv(|v| v * a))], &[layer], overrides)?;
-        let grad = tape.gradients(&[(layer, seed.clone())], &[g.input])?.remove(0);
-        acc = Some(match acc {
-            None => grad,
-            Some(prev) => prev + grad,
-        });
-    }
-    let grad = acc.ok_or_else(|| Error::Usage("no path steps".into()))?;
-    Ok(b.from_model_input(&grad)?.sum_axis(Axis(0)))
+    acc.into_iter()
+        .map(|a| {
+            let grad = path.to_input(a.ok_or_else(|| Error::Usage("no path steps".into()))?)?;
+            Ok(model.binding.from_model_input(&grad)?.index_axis_move(Axis(0), 0))
+        })
+        .collect()
 }
 
 /// The filter's generator signal for each window: sum over lags and pixels of filter x window.

@@ -4,7 +4,7 @@
 
 use super::{label, silence, Clamp, Unit};
 use crate::model::Model;
-use crate::response::rates_with;
+use crate::response::PrefixRates;
 use crate::stimulus::protocols::{self, Observed};
 use crate::stimulus::Stimulus;
 use crate::{Error, Result};
@@ -90,7 +90,8 @@ pub fn knockouts(
             Observed { meta: &stim.meta, movie: &stim.movie, rates: r.view(), lags: model.binding.lags, rf_centres };
         Ok(protocol.measure(&obs)?.summary)
     };
-    let full = rates_with(model, &stim.movie, &[], &|_| {})?;
+    let prefix = PrefixRates::new(model, &stim.movie)?;
+    let full = prefix.rates_with(&[])?;
     if cell >= full.ncols() {
         return Err(Error::Usage(format!("cell {cell} is out of range: the model has {} cells", full.ncols())));
     }
@@ -104,7 +105,7 @@ pub fn knockouts(
     let mut effects = Vec::with_capacity(sets.len());
     for set in sets {
         let overrides = silence(model, &stim.movie, set, clamp)?;
-        let r = rates_with(model, &stim.movie, &overrides, &|_| {})?;
+        let r = prefix.rates_with(&overrides)?;
         let k = trace(&r);
         let sse: f64 = f.iter().zip(&k).map(|(a, b)| (a - b).powi(2)).sum();
         let silenced = cell_metrics(&measure(&r)?, cell);

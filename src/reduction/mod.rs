@@ -7,6 +7,7 @@ pub mod edges;
 pub mod export;
 pub mod fidelity;
 pub mod filters;
+pub mod gray_path;
 pub mod knockout;
 pub mod nonlinearity;
 pub mod plot;

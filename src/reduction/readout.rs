@@ -3,7 +3,8 @@
 //! cell and when it acts (conductance time course).
 
 use super::circuit::Circuit;
-use super::filters::{effective_filter, first_conv, generator, hot_position, kernel, separate, Separable, Site};
+use super::filters::{effective_filters, first_conv, generator, hot_position, kernel, separate, Separable};
+use super::gray_path::GrayPath;
 use super::nonlinearity::{exact, fitted, Curve};
 use crate::attribution::LayerAttribution;
 use crate::engine::ValueId;
@@ -52,6 +53,8 @@ pub fn read_out(
     let total = movie.shape()[0];
     let sample: Vec<usize> = (0..total).step_by(total.div_ceil(512).max(1)).collect();
     let mut out = Vec::new();
+    let b = &model.binding;
+    let path = GrayPath::new(g, &b.to_model_input(windows_at(movie, b.lags, frames)))?;
     let mut kept: Vec<&super::circuit::LayerCircuit> = circuit.layers.iter().collect();
     kept.sort_by_key(|l| l.layer);
     for l in kept {
@@ -59,7 +62,6 @@ pub fn read_out(
         let att = &attributions[i];
         let conv = first_conv(model, l.layer);
         // The layer's activity over the sample frames in the reduced circuit.
-        let b = &model.binding;
         let x = b.to_model_input(windows_at(movie, b.lags, &sample));
         let tape = g.forward_to(vec![(g.input, x)], &[l.layer], &overrides)?;
         let activity = tape.value(l.layer);
@@ -67,10 +69,9 @@ pub fn read_out(
         let cs = activity.shape()[1];
         let flat = activity.as_standard_layout();
         let flat = flat.as_slice().unwrap_or(&[]);
-        for &c in &l.channels {
-            let position = hot_position(&att.space, c);
-            let site = Site { layer: l.layer, channel: c, position };
-            let eff = effective_filter(model, movie, frames, site, &overrides, steps.clamp(1, 16))?;
+        let sites: Vec<(usize, usize)> = l.channels.iter().map(|&c| (c, hot_position(&att.space, c))).collect();
+        let filters = effective_filters(model, &path, l.layer, &sites, &overrides, steps.clamp(1, 16))?;
+        for (&(c, position), eff) in sites.iter().zip(filters) {
             let y = Array1::from_iter((0..sample.len()).map(|s| flat[(s * cs + c) * per + position] as f64));
             let (kern, nonlinearity) = match conv.and_then(|cv| kernel(model, cv, c).map(|k| (cv, k))) {
                 Some((cv, k)) => {

@@ -62,19 +62,25 @@ impl<'m> Judge<'m> {
         fidelity(&self.full, reduced, self.rest)
     }
 
+    /// The value of `layer` over the analysis windows with `fixed` overrides on other layers.
+    pub fn layer_value(&self, layer: ValueId, fixed: &[Override]) -> Result<Tensor> {
+        let g = &self.model.graph;
+        let others: Vec<Override> = fixed.iter().filter(|o| o.value != layer).cloned().collect();
+        Ok(g.forward_to(vec![(g.input, self.x.clone())], &[layer], &others)?.value(layer).clone())
+    }
+
     /// Responses of several candidate keep-masks of `layer` (1 = keep, `[1, C, spatial...]`),
-    /// with `fixed` overrides on other layers; the layer's unmasked value is computed once.
+    /// given the layer's unmasked value `a` (from [`Judge::layer_value`] with the same `fixed`).
     pub fn candidates(
         &self,
         layer: ValueId,
+        a: &Tensor,
         clamp: &Tensor,
         keeps: &[Tensor],
         fixed: &[Override],
     ) -> Result<Vec<Vec<f64>>> {
         let g = &self.model.graph;
         let others: Vec<Override> = fixed.iter().filter(|o| o.value != layer).cloned().collect();
-        let below = g.forward_to(vec![(g.input, self.x.clone())], &[layer], &others)?;
-        let a = below.value(layer);
         let n = a.shape()[0];
         let per_candidate = g.bytes_per_sample() * n;
         let batch = chunk_len(per_candidate, DEFAULT_BUDGET_BYTES / 2).clamp(1, 64);
@@ -181,9 +187,10 @@ pub fn reduce_layer(
     let n = units.entries.len();
     let mut order: Vec<usize> = (0..n).collect();
     order.sort_by(|&a, &b| units.conductance[b].abs().total_cmp(&units.conductance[a].abs()).then(a.cmp(&b)));
+    let value = judge.layer_value(layer, fixed)?;
     let eval = |sets: &[Vec<usize>]| -> Result<Vec<Fidelity>> {
         let masks: Vec<Tensor> = sets.iter().map(|s| units.mask(s)).collect();
-        Ok(judge.candidates(layer, clamp, &masks, fixed)?.iter().map(|r| judge.fidelity(r)).collect())
+        Ok(judge.candidates(layer, &value, clamp, &masks, fixed)?.iter().map(|r| judge.fidelity(r)).collect())
     };
     let ok = |f: &Fidelity| criterion.score(f) >= target;
     let mut curve = Vec::new();

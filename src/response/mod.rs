@@ -4,9 +4,11 @@
 
 pub mod measure;
 mod plot;
+mod prefix;
 mod write;
 
 pub use plot::responses_svg;
+pub use prefix::PrefixRates;
 pub use write::write_responses;
 
 use crate::engine::batch::{chunk_len, DEFAULT_BUDGET_BYTES};
