@@ -14,7 +14,6 @@ mod timing;
 
 use sufficit::attribution::{attribute, resolve_layers, Baseline, Request, Rule, Steps};
 use sufficit::model::{LoadOptions, Model};
-use sufficit::stimulus::{protocols, Canvas, Params, Stimulus};
 use timing::{median, peak_mib, samples};
 
 const REPEATS: usize = 5;
@@ -25,13 +24,8 @@ fn main() {
     let path = dir.join("reference.onnx");
     reference_model::write_reference_model(&path);
     let model = Model::load(&path, &LoadOptions::default()).expect("load");
-    let canvas = Canvas { height: 50, width: 50, lags: 40, frame_rate_hz: 100.0, pixel_um: 50.0 };
-    let p = protocols::find("white-noise").expect("white-noise");
-    let params =
-        Params::parse(p.name(), p.specs(), &["duration_ms=990".into(), "checker_um=50".into()]).expect("params");
-    let stim = Stimulus::assemble(p.name(), &params, &canvas, 1, p.draw(&params, &canvas, 1).expect("draw"));
     // 40 gray history frames + 99 noise frames = 139; the 100 windows end at frames 39..139.
-    assert_eq!(stim.meta.frames, 139);
+    let stim = reference_model::reference_noise();
     let frames: Vec<usize> = (39..139).collect();
     // Work of the direct method, in multiply-adds per window: forward through both convolutions
     // and the readout, backward to layer1 (conductance) or to the input (IG).

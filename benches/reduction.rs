@@ -14,7 +14,7 @@ mod timing;
 
 use clap::Parser;
 use sufficit::cli::{run, Cli};
-use sufficit::stimulus::{protocols, write_stimulus, Canvas, Params, Stimulus};
+use sufficit::stimulus::write_stimulus;
 use timing::{median, peak_mib, samples};
 
 const REPEATS: usize = 3;
@@ -24,11 +24,8 @@ fn main() {
     std::fs::create_dir_all(&dir).expect("temp dir");
     let model = dir.join("reference.onnx");
     reference_model::write_reference_model(&model);
-    let canvas = Canvas { height: 50, width: 50, lags: 40, frame_rate_hz: 100.0, pixel_um: 50.0 };
-    let p = protocols::find("white-noise").expect("white-noise");
-    let params =
-        Params::parse(p.name(), p.specs(), &["duration_ms=990".into(), "checker_um=50".into()]).expect("params");
-    let stim = Stimulus::assemble(p.name(), &params, &canvas, 1, p.draw(&params, &canvas, 1).expect("draw"));
+    // 40 gray history frames + 99 noise frames = 139; the 100 windows end at frames 39..139.
+    let stim = reference_model::reference_noise();
     let stim_dir = dir.join("noise");
     write_stimulus(&stim, &stim_dir).expect("write stimulus");
     let (m, s) = (model.to_str().expect("utf-8"), stim_dir.to_str().expect("utf-8"));

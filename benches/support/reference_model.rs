@@ -50,3 +50,17 @@ pub fn write_reference_model(path: &Path) {
     };
     save(&model_of(graph), path);
 }
+
+/// The reference job's stimulus: 40 gray history frames then 99 frames of binary white noise
+/// (50 um checkers) at 100 Hz on 50 x 50 pixels, 139 frames in all.
+#[allow(dead_code)] // not every benchmark uses it
+pub fn reference_noise() -> sufficit::stimulus::Stimulus {
+    use sufficit::stimulus::{protocols, Canvas, Params, Stimulus};
+    let canvas = Canvas { height: 50, width: 50, lags: 40, frame_rate_hz: 100.0, pixel_um: 50.0 };
+    let p = protocols::find("white-noise").expect("white-noise");
+    let params =
+        Params::parse(p.name(), p.specs(), &["duration_ms=990".into(), "checker_um=50".into()]).expect("params");
+    let stim = Stimulus::assemble(p.name(), &params, &canvas, 1, p.draw(&params, &canvas, 1).expect("draw"));
+    assert_eq!(stim.meta.frames, 139);
+    stim
+}
