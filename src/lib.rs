@@ -11,6 +11,7 @@ pub mod engine;
 pub mod error;
 pub mod model;
 pub mod output;
+pub mod palette;
 pub mod reduction;
 pub mod response;
 pub mod stimulus;

@@ -118,6 +118,12 @@ fn reduce_recovers_the_planted_circuit_its_filters_signs_and_knockouts() {
     assert!(ex["max_relative_difference_tract"].as_f64().unwrap() < 1e-5, "{ex}");
     assert!(ex["layers"].as_array().unwrap().iter().all(|l| l["method"] == "removed"), "{ex}");
 
+    for f in ["units/bipolar_0.svg", "units/amacrine_0.svg"] {
+        let svg = std::fs::read_to_string(out.join(f)).unwrap();
+        for label in ["x (um)", "time before response (ms)", "generator signal", "activation (model units)"] {
+            assert!(svg.contains(label), "{f} lacks the axis label '{label}'");
+        }
+    }
     for f in [
         "fidelity_curve.csv",
         "fidelity_curve.svg",

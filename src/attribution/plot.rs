@@ -1,19 +1,10 @@
 //! Attribution plots: the unit x time conductance heatmap and the ranked bar chart.
 
+use crate::palette::diverging;
 use ndarray::Array2;
 use plotters::prelude::*;
 
-fn diverging(v: f64, scale: f64) -> RGBColor {
-    let t = (v / scale.max(1e-30)).clamp(-1.0, 1.0);
-    let fade = |c: u8| (255.0 - (255.0 - c as f64) * t.abs()) as u8;
-    if t >= 0.0 {
-        RGBColor(fade(178), fade(24), fade(43))
-    } else {
-        RGBColor(fade(33), fade(102), fade(172))
-    }
-}
-
-/// Units (rows, labelled) x frames `[first, last)` heatmap; red excitatory, blue inhibitory.
+/// Units (rows, labelled) x frames `[first, last)` heatmap; vermilion drives the target up, blue down.
 pub fn heatmap_svg(rows: &[(String, Vec<f32>)], first: usize, last: usize, frame_ms: f64) -> Result<String, String> {
     let mut svg = String::new();
     {
@@ -22,7 +13,7 @@ pub fn heatmap_svg(rows: &[(String, Vec<f32>)], first: usize, last: usize, frame
         root.fill(&WHITE).map_err(|e| e.to_string())?;
         let scale = rows.iter().flat_map(|(_, v)| v[first..last].iter()).fold(0f64, |m, v| m.max(v.abs() as f64));
         let mut chart = ChartBuilder::on(&root)
-            .caption("conductance per unit and time (red: drives the target up, blue: down)", ("sans-serif", 15))
+            .caption("conductance per unit and time (vermilion: drives the target up, blue: down)", ("sans-serif", 15))
             .margin(10)
             .x_label_area_size(30)
             .y_label_area_size(120)

@@ -79,7 +79,8 @@ fn unit_json(model: &Model, u: &UnitReadout, knock: Option<&crate::reduction::kn
         "nonlinearity": u.nonlinearity.as_ref().map(|c| json!({"kind": c.kind, "threshold": num(c.threshold), "gain": num(c.gain),
             "fit": c.fit.map(|f| json!({"form": "a * softplus(b * (g - theta)) + d", "a": num(f.a), "b": num(f.b), "theta": num(f.theta), "d": num(f.d), "fve": num(f.fve), "rms_error": num(f.rms_error)}))})),
         "files": {"spatial": format!("units/{name}_{}_spatial.npy", u.channel), "temporal": format!("units/{name}_{}_temporal.npy", u.channel),
-                  "filter": format!("units/{name}_{}_filter.npy", u.channel), "nonlinearity": format!("units/{name}_{}_nonlinearity.csv", u.channel)},
+                  "filter": format!("units/{name}_{}_filter.npy", u.channel), "nonlinearity": format!("units/{name}_{}_nonlinearity.csv", u.channel),
+                  "figure": format!("units/{name}_{}.svg", u.channel)},
         "knockout": knock.map(|k| json!({"rank": k.rank, "relative_rms_change": num(k.relative_rms_change), "fraction_variance_explained": num(k.fraction_variance_explained)})),
     })
 }
@@ -178,6 +179,22 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
             &ndarray::Array1::from(u.kernel.as_ref().unwrap_or(&u.effective).temporal.clone()),
         )?;
         out.write_npy(&format!("{stem}_filter.npy"), &u.effective.full)?;
+        let shown = u.kernel.as_ref().unwrap_or(&u.effective);
+        let figure = plot::UnitFigure {
+            title: format!(
+                "{}:{} ({}; {})",
+                model.graph.values[u.layer].name,
+                u.channel,
+                if u.gradient >= 0.0 { "excitatory" } else { "inhibitory" },
+                if u.kernel.is_some() { "kernel" } else { "effective filter" }
+            ),
+            spatial: &shown.spatial,
+            temporal: &shown.temporal,
+            curve: u.nonlinearity.as_ref().map(|c| (c.generator.as_slice(), c.activation.as_slice())),
+            pixel_um: stim.meta.pixel_size_um,
+            frame_ms: 1000.0 / stim.meta.frame_rate_hz,
+        };
+        out.write_bytes(&format!("{stem}.svg"), plot::unit_svg(&figure).map_err(Error::Usage)?.as_bytes())?;
         if let Some(c) = &u.nonlinearity {
             let csv: String = std::iter::once("generator,activation\n".to_string())
                 .chain(c.generator.iter().zip(&c.activation).map(|(g, y)| format!("{g},{y}\n")))

@@ -1,5 +1,6 @@
 //! Reduction plots: the fidelity-vs-size curve and the full vs reduced response.
 
+use crate::palette::{diverging, SERIES};
 use plotters::prelude::*;
 
 /// Fidelity (fraction of variance explained) against the number of kept units, one series per
@@ -26,9 +27,8 @@ pub fn fidelity_curve_svg(series: &[(String, Vec<(usize, f64)>)], target: f64) -
             .draw()
             .map_err(|e| e.to_string())?;
         // Colour-blind-safe pair (blue, orange) with distinct markers as well as colours.
-        let colours = [RGBColor(0, 114, 178), RGBColor(230, 159, 0), RGBColor(0, 158, 115), RGBColor(204, 121, 167)];
         for (i, (name, points)) in series.iter().enumerate() {
-            let c = colours[i % colours.len()];
+            let c = SERIES[i % SERIES.len()];
             let pts: Vec<(f64, f64)> = points.iter().map(|&(s, f)| (s as f64, f.max(-1.0))).collect();
             chart
                 .draw_series(LineSeries::new(pts.clone(), c.stroke_width(2)))
@@ -76,8 +76,8 @@ pub fn reduced_response_svg(times_ms: &[f64], full: &[f64], reduced: &[f64], cel
             .build_cartesian_2d(t0..t1 + 1e-9, lo - pad..hi + pad)
             .map_err(|e| e.to_string())?;
         chart.configure_mesh().x_desc("time (ms)").y_desc("rate (model units)").draw().map_err(|e| e.to_string())?;
-        let blue = RGBColor(0, 114, 178);
-        let orange = RGBColor(230, 159, 0);
+        let blue = SERIES[0];
+        let orange = SERIES[1];
         chart
             .draw_series(LineSeries::new(times_ms.iter().copied().zip(full.iter().copied()), blue.stroke_width(2)))
             .map_err(|e| e.to_string())?;
@@ -85,6 +85,91 @@ pub fn reduced_response_svg(times_ms: &[f64], full: &[f64], reduced: &[f64], cel
         chart
             .draw_series(pts.chunks(2).step_by(2).map(|p| PathElement::new(p.to_vec(), orange.stroke_width(3))))
             .map_err(|e| e.to_string())?;
+        root.present().map_err(|e| e.to_string())?;
+    }
+    Ok(svg)
+}
+
+/// One kept unit on one page: spatial map (pixels, micrometres on the axes), temporal filter
+/// (ms before the response) and nonlinearity (generator signal vs activation).
+pub struct UnitFigure<'a> {
+    /// `layer:channel` and its sign, for the title.
+    pub title: String,
+    /// Spatial map `[height, width]`.
+    pub spatial: &'a ndarray::Array2<f32>,
+    /// Temporal filter, oldest lag first.
+    pub temporal: &'a [f32],
+    /// Nonlinearity samples (generator, activation), if any.
+    pub curve: Option<(&'a [f64], &'a [f64])>,
+    /// Pixel size (um) and frame duration (ms).
+    pub pixel_um: f64,
+    /// Frame duration in ms.
+    pub frame_ms: f64,
+}
+
+/// The unit figure as SVG.
+pub fn unit_svg(f: &UnitFigure) -> Result<String, String> {
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (1080, 340)).into_drawing_area();
+        root.fill(&WHITE).map_err(|e| e.to_string())?;
+        let root = root.titled(&f.title, ("sans-serif", 16)).map_err(|e| e.to_string())?;
+        let panels = root.split_evenly((1, 3));
+        let (h, w) = f.spatial.dim();
+        let scale = f.spatial.iter().fold(0f64, |m, v| m.max(v.abs() as f64));
+        let (wu, hu) = (w as f64 * f.pixel_um, h as f64 * f.pixel_um);
+        let mut c = ChartBuilder::on(&panels[0])
+            .caption("spatial map (vermilion +, blue -)", ("sans-serif", 13))
+            .margin(8)
+            .x_label_area_size(30)
+            .y_label_area_size(44)
+            .build_cartesian_2d(0f64..wu, 0f64..hu)
+            .map_err(|e| e.to_string())?;
+        c.configure_mesh().disable_mesh().x_desc("x (um)").y_desc("y (um)").draw().map_err(|e| e.to_string())?;
+        c.draw_series(f.spatial.indexed_iter().map(|((y, x), &v)| {
+            let (x0, y0) = (x as f64 * f.pixel_um, hu - (y + 1) as f64 * f.pixel_um);
+            Rectangle::new([(x0, y0), (x0 + f.pixel_um, y0 + f.pixel_um)], diverging(v as f64, scale).filled())
+        }))
+        .map_err(|e| e.to_string())?;
+        let lags = f.temporal.len();
+        let pts: Vec<(f64, f64)> =
+            f.temporal.iter().enumerate().map(|(l, &v)| (-((lags - 1 - l) as f64) * f.frame_ms, v as f64)).collect();
+        let top = pts.iter().fold(1e-12f64, |m, p| m.max(p.1.abs())) * 1.1;
+        let mut c = ChartBuilder::on(&panels[1])
+            .caption("temporal filter", ("sans-serif", 13))
+            .margin(8)
+            .x_label_area_size(30)
+            .y_label_area_size(50)
+            .build_cartesian_2d(-((lags.max(2) - 1) as f64) * f.frame_ms..0f64, -top..top)
+            .map_err(|e| e.to_string())?;
+        c.configure_mesh()
+            .x_desc("time before response (ms)")
+            .y_desc("weight (1/contrast)")
+            .draw()
+            .map_err(|e| e.to_string())?;
+        c.draw_series(LineSeries::new(pts, SERIES[0].stroke_width(2))).map_err(|e| e.to_string())?;
+        if let Some((g, y)) = f.curve {
+            let (gl, gh) = g.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+            let (yl, yh) = y.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+            let pad = ((yh - yl) * 0.05).max(1e-9);
+            let mut c = ChartBuilder::on(&panels[2])
+                .caption("nonlinearity", ("sans-serif", 13))
+                .margin(8)
+                .x_label_area_size(30)
+                .y_label_area_size(50)
+                .build_cartesian_2d(gl..gh.max(gl + 1e-9), yl - pad..yh + pad)
+                .map_err(|e| e.to_string())?;
+            c.configure_mesh()
+                .x_desc("generator signal (filter x contrast)")
+                .y_desc("activation (model units)")
+                .draw()
+                .map_err(|e| e.to_string())?;
+            c.draw_series(LineSeries::new(
+                g.iter().copied().zip(y.iter().copied()),
+                crate::palette::POSITIVE.stroke_width(2),
+            ))
+            .map_err(|e| e.to_string())?;
+        }
         root.present().map_err(|e| e.to_string())?;
     }
     Ok(svg)

@@ -1,20 +1,11 @@
 //! `responses.svg`: each cell's rate over time with the stimulus events marked.
 
+use crate::palette::SERIES;
 use crate::stimulus::Meta;
 use ndarray::Array2;
 use plotters::prelude::*;
 
 const MAX_CELLS: usize = 8;
-const PALETTE: [RGBColor; 8] = [
-    RGBColor(31, 119, 180),
-    RGBColor(214, 39, 40),
-    RGBColor(44, 160, 44),
-    RGBColor(148, 103, 189),
-    RGBColor(255, 127, 14),
-    RGBColor(23, 190, 207),
-    RGBColor(140, 86, 75),
-    RGBColor(127, 127, 127),
-];
 
 /// Render the rates `[frames, cells]` (first 8 cells) as an SVG document.
 pub fn responses_svg(rates: &Array2<f32>, meta: &Meta) -> Result<String, String> {
@@ -48,7 +39,7 @@ pub fn responses_svg(rates: &Array2<f32>, meta: &Meta) -> Result<String, String>
                 .map_err(|e| e.to_string())?;
         }
         for c in 0..rates.ncols().min(MAX_CELLS) {
-            let colour = PALETTE[c % PALETTE.len()];
+            let colour = SERIES[c % SERIES.len()];
             chart
                 .draw_series(LineSeries::new(
                     (0..frames).map(|t| (ms(t), rates[[t, c]] as f64)),
