@@ -7,6 +7,7 @@
 
 pub mod attribution;
 pub mod cli;
+pub mod demo;
 pub mod engine;
 pub mod error;
 pub mod model;

@@ -2,6 +2,7 @@
 //! command turns its arguments into library calls and prints where it wrote its results.
 
 mod attribute;
+mod demo_models;
 mod inspect;
 mod knockout;
 mod reduce;
@@ -39,6 +40,9 @@ pub enum Command {
     /// Cut the network down to the smallest set of hidden units that keeps a cell's response,
     /// read their filters and nonlinearities, and export the pruned model.
     Reduce(reduce::ReduceArgs),
+    /// Write the demo models into a folder (maintainers: regenerates `models/`).
+    #[command(hide = true)]
+    DemoModels(demo_models::DemoModelsArgs),
 }
 
 /// Options every working command takes.
@@ -158,6 +162,7 @@ pub fn run(cli: Cli) -> Result<()> {
             a.job.common.apply()?;
             knockout::run(&a)
         }
+        Command::DemoModels(a) => demo_models::run(&a),
         Command::Reduce(a) => {
             a.job.common.apply()?;
             reduce::run(&a)

@@ -1,0 +1,221 @@
+//! The planted "synthetic sensor": a patch of a vertebrate-like retina built from textbook parts,
+//! written as an ONNX encoding model whose units, filters and signs are known exactly. Three
+//! cells share one receptive-field centre (the frame centre, where the protocols draw):
+//!
+//! - cell 0, "resonant": a wide-field pathway with a damped-oscillation temporal filter (it rings
+//!   at about 10 Hz after each flash) excites the cell; a fast ON pathway, driven by each actual
+//!   flash at the latency where the ringing peaks, inhibits it. During a regular flash train
+//!   the two cancel; when a flash is left out, the ringing arrives uncancelled: a response
+//!   after the omitted flash.
+//! - cell 1, "reversal": two direction-selective pathways (space-time oriented filters, one per
+//!   direction), each pooled over a square and inhibited by an 80 ms delayed copy of itself. Under
+//!   steady motion each direction's pool and its delayed copy match and cancel; when the bar
+//!   reverses, the newly driven direction fires until its delayed copy catches up: a burst at the
+//!   reversal.
+//! - cell 2, "object motion": the same subunit types, centre pool minus a surround pool (both
+//!   rectified, the difference rectified), after Olveczky, Baccus & Meister (Nature 2003):
+//!   global jitter drives centre and surround together and they cancel; differential motion
+//!   does not.
+//!
+//! Units: 100 Hz frames (10 ms), 50 um pixels, 40 lags (400 ms), 50 x 50 pixels (2.5 mm).
+
+use crate::model::builder::OnnxBuilder;
+use crate::Tensor;
+use ndarray::{Array1, Array2, ArrayD, IxDyn};
+use tract_onnx::pb::ModelProto;
+
+/// Lags (frames of history) of every demo model.
+pub const LAGS: usize = 40;
+/// Frame height and width in pixels.
+pub const SIZE: usize = 50;
+/// Frame duration in ms.
+pub const FRAME_MS: f64 = 10.0;
+/// First-layer kernel size (pixels).
+pub const K1: usize = 15;
+/// Second-layer kernel size (pixels).
+pub const K2: usize = 15;
+
+/// Names of the first-layer pathways, by channel.
+pub const PATHWAYS: [&str; 8] = [
+    "on-transient",
+    "off-transient",
+    "resonant",
+    "on-fast",
+    "rightward",
+    "rightward-delayed",
+    "leftward",
+    "leftward-delayed",
+];
+
+/// Preferred speed of the direction-selective pathways, pixels per frame (1 mm/s at 50 um per
+/// pixel and 10 ms per frame).
+const DS_SPEED: f64 = 0.2;
+
+/// Peak (ms before the response) and width (s.d., ms) of the direction-selective envelope.
+const DS_PEAK_MS: f64 = 100.0;
+const DS_WIDTH_MS: f64 = 40.0;
+
+/// Threshold of the direction-selective pathways (their drive by a full-contrast bar at the
+/// preferred speed is about 7, in the null direction about half that): rectifying above it
+/// makes them direction selective.
+const DS_THRESHOLD: f32 = 4.0;
+
+/// Delay of the direction-selective pathways' inhibitory copies, ms.
+const DS_DELAY_MS: f64 = 80.0;
+
+/// Names of the cells, by output index.
+pub const CELLS: [&str; 3] = ["resonant", "reversal", "object-motion"];
+
+/// An alpha function of the time before the response `tau_ms`, peaking at 1 when `tau_ms = peak_ms`.
+fn alpha(tau_ms: f64, peak_ms: f64) -> f64 {
+    if tau_ms < 0.0 {
+        0.0
+    } else {
+        tau_ms / peak_ms * (1.0 - tau_ms / peak_ms).exp()
+    }
+}
+
+/// Time before the response (ms) of lag `l` (0 = oldest).
+fn tau(l: usize) -> f64 {
+    (LAGS - 1 - l) as f64 * FRAME_MS
+}
+
+/// The planted temporal filters, oldest lag first, by pathway.
+pub fn temporal(pathway: usize) -> Array1<f32> {
+    Array1::from_iter((0..LAGS).map(|l| {
+        let t = tau(l);
+        (match pathway {
+            // Biphasic: a fast positive lobe and a slower undershoot.
+            0 => alpha(t, 30.0) - 0.7 * alpha(t, 70.0),
+            1 => -(alpha(t, 30.0) - 0.7 * alpha(t, 70.0)),
+            // Damped oscillation, 100 ms period, 150 ms decay, starting at the flash.
+            2 => (2.0 * std::f64::consts::PI * t / 100.0).sin() * (-t / 150.0).exp(),
+            // Fast monophasic ON, peaking 25 ms after the flash (the ringing's first peak).
+            3 => alpha(t, 25.0),
+            // Direction-selective pathways: the envelope of their space-time oriented filter
+            // (see `oriented`), the delayed copies shifted by DS_DELAY_MS.
+            4 | 6 => (-(t - DS_PEAK_MS).powi(2) / (2.0 * DS_WIDTH_MS * DS_WIDTH_MS)).exp(),
+            _ => (-(t - DS_PEAK_MS - DS_DELAY_MS).powi(2) / (2.0 * DS_WIDTH_MS * DS_WIDTH_MS)).exp(),
+        }) as f32
+    }))
+}
+
+/// The planted spatial maps, by pathway (for the direction-selective pathways: the map at the
+/// envelope's peak; their filters are not separable).
+pub fn spatial(pathway: usize) -> Array2<f32> {
+    match pathway {
+        0 | 1 | 4..=7 => spot_at(1.0, 0.0),
+        _ => spot_at(3.0, 0.0),
+    }
+}
+
+/// A Gaussian spot of width `sigma` pixels, shifted `dx` pixels right of the kernel centre,
+/// summing to 1 over the infinite plane (truncation at the kernel edge is kept).
+fn spot_at(sigma: f64, dx: f64) -> Array2<f32> {
+    let c = (K1 - 1) as f64 / 2.0;
+    Array2::from_shape_fn((K1, K1), |(y, x)| {
+        let r2 = (y as f64 - c).powi(2) + (x as f64 - c - dx).powi(2);
+        ((-r2 / (2.0 * sigma * sigma)).exp() / (2.0 * std::f64::consts::PI * sigma * sigma)) as f32
+    })
+}
+
+/// The first-layer kernel of `pathway`, `[lags, K1, K1]`. Separable except for the
+/// direction-selective pathways, whose spot moves with time before the response at DS_SPEED
+/// (rightward: the spot sat further left longer ago), centred at the envelope's peak.
+pub fn kernel(pathway: usize) -> ndarray::Array3<f32> {
+    let h = temporal(pathway);
+    let mut k = ndarray::Array3::zeros((LAGS, K1, K1));
+    for l in 0..LAGS {
+        let t = tau(l);
+        let (sign, peak) = match pathway {
+            4 => (-1.0, DS_PEAK_MS),
+            5 => (-1.0, DS_PEAK_MS + DS_DELAY_MS),
+            6 => (1.0, DS_PEAK_MS),
+            7 => (1.0, DS_PEAK_MS + DS_DELAY_MS),
+            _ => (0.0, 0.0),
+        };
+        let map = if sign == 0.0 { spatial(pathway) } else { spot_at(1.0, sign * DS_SPEED * (t - peak) / FRAME_MS) };
+        k.index_axis_mut(ndarray::Axis(0), l).assign(&(map * h[l]));
+    }
+    k
+}
+
+/// Second-layer weights on a `K2 x K2` grid: 1 inside radius `r1`, 0 elsewhere, or the ring
+/// `r0 <= r < r1`; each normalised to sum to 1.
+fn disc(r0: f64, r1: f64) -> Array2<f32> {
+    let c = (K2 - 1) as f64 / 2.0;
+    let d = Array2::from_shape_fn((K2, K2), |(y, x)| {
+        let r = ((y as f64 - c).powi(2) + (x as f64 - c).powi(2)).sqrt();
+        if r >= r0 && r < r1 {
+            1.0f32
+        } else {
+            0.0
+        }
+    });
+    let total = d.sum();
+    d / total
+}
+
+/// The planted model.
+pub fn synthetic_sensor() -> ModelProto {
+    let n1 = PATHWAYS.len();
+    let kernels: Vec<ndarray::Array3<f32>> = (0..n1).map(kernel).collect();
+    let w1 = ArrayD::from_shape_fn(IxDyn(&[n1, LAGS, K1, K1]), |i| kernels[i[0]][[i[1], i[2], i[3]]]);
+    // Subunits are thresholded (rectification at a small positive contrast); the other pathways
+    // sit at zero under gray.
+    let mut b1 = Tensor::zeros(IxDyn(&[n1]));
+    b1[[0]] = -0.02;
+    b1[[1]] = -0.02;
+    for ds in 4..8 {
+        b1[[ds]] = -DS_THRESHOLD;
+    }
+    let mut w2 = Tensor::zeros(IxDyn(&[4, n1, K2, K2]));
+    let c = K2 / 2;
+    // Unit 0: resonant excitation minus flash-driven inhibition at the centre.
+    w2[[0, 2, c, c]] = 1.0;
+    w2[[0, 3, c, c]] = -1.2;
+    // Units 1 and 2: each direction pooled over a square (13 x 13 px, 650 um: a vertical bar
+    // crossing it keeps a constant overlap) minus its delayed copy.
+    // Unit 3: centre pool of ON and OFF subunits (radius 3.5 px) minus the surround pool (3.5 .. 7.5 px).
+    let (centre, surround) = (disc(0.0, 3.5), disc(3.5, 7.5));
+    let pool =
+        Array2::from_shape_fn(
+            (K2, K2),
+            |(y, x)| if y.abs_diff(c) <= 6 && x.abs_diff(c) <= 6 { 1.0 / 169.0 } else { 0.0 },
+        );
+    for ((y, x), &v) in pool.indexed_iter() {
+        w2[[1, 4, y, x]] = 8.0 * v;
+        w2[[1, 5, y, x]] = -8.0 * v;
+        w2[[2, 6, y, x]] = 8.0 * v;
+        w2[[2, 7, y, x]] = -8.0 * v;
+    }
+    for sub in 0..2 {
+        for ((y, x), &v) in centre.indexed_iter() {
+            w2[[3, sub, y, x]] += 4.0 * v;
+        }
+        for ((y, x), &v) in surround.indexed_iter() {
+            w2[[3, sub, y, x]] -= 4.0 * v;
+        }
+    }
+    let b2 = Tensor::zeros(IxDyn(&[4]));
+    // Readout: each cell reads its unit(s) at the four central positions of the 22 x 22 map.
+    let s2 = SIZE - K1 + 1 - K2 + 1;
+    let per = s2 * s2;
+    let mut w3 = Tensor::zeros(IxDyn(&[3, 4 * per]));
+    for (cell, units) in [(0, vec![0]), (1, vec![1, 2]), (2, vec![3])] {
+        for u in units {
+            for (y, x) in [(s2 / 2 - 1, s2 / 2 - 1), (s2 / 2 - 1, s2 / 2), (s2 / 2, s2 / 2 - 1), (s2 / 2, s2 / 2)] {
+                w3[[cell, u * per + y * s2 + x]] = 2.0;
+            }
+        }
+    }
+    let b3 = Tensor::from_elem(IxDyn(&[3]), -1.0);
+    let mut m = OnnxBuilder::new("stimulus", &[LAGS, SIZE, SIZE]);
+    m.conv("stimulus", "conv1", &w1, &b1);
+    m.node("Relu", &["conv1"], "pathways", vec![]);
+    m.conv("pathways", "conv2", &w2, &b2);
+    m.node("Relu", &["conv2"], "units", vec![]);
+    m.dense("units", "readout", &w3, &b3);
+    m.node("Softplus", &["readout"], "rates", vec![]);
+    m.finish("rates", "synthetic sensor (planted)")
+}
