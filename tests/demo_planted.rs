@@ -77,9 +77,9 @@ fn the_resonant_cell_alone_responds_after_the_omitted_flash() {
     assert!(after > 2.0 * train && after > 5.0, "resonant cell at 100 ms: {after} vs train {train}");
     assert!(margins[0][1].0 > 2.0 && margins[0][1].1 < 0.5, "resonant cell at 80 ms: {:?}", margins[0][1]);
     // The others: nothing after the omission beyond what the train itself evokes.
-    for cell in 1..3 {
-        for &(after, train) in &margins[cell] {
-            assert!(after <= train.max(0.0) + 0.5, "cell {cell}: {:?}", margins[cell]);
+    for (cell, rows) in margins.iter().enumerate().skip(1) {
+        for &(after, train) in rows {
+            assert!(after <= train.max(0.0) + 0.5, "cell {cell}: {rows:?}");
         }
     }
 }
