@@ -1,7 +1,9 @@
 //! The demo: models whose mechanisms are planted by construction (`planted`), and the files
 //! shipped in `models/`.
 
+pub mod movies;
 pub mod planted;
+pub mod train;
 
 use crate::output::OutputDir;
 use crate::Result;

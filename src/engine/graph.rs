@@ -72,6 +72,19 @@ impl Graph {
         }
     }
 
+    /// The parameters (weights, biases), in value order.
+    pub fn params(&self) -> Vec<ValueId> {
+        (0..self.values.len()).filter(|&i| matches!(self.values[i].source, Source::Param(_))).collect()
+    }
+
+    /// Mutable access to parameter `id` (training), or `None` if `id` is not a parameter.
+    pub fn param_mut(&mut self, id: ValueId) -> Option<&mut Tensor> {
+        match &mut self.values[id].source {
+            Source::Param(t) => Some(t),
+            _ => None,
+        }
+    }
+
     /// Bytes of activations one sample occupies (all node outputs, f32).
     pub fn bytes_per_sample(&self) -> usize {
         self.values

@@ -1,0 +1,181 @@
+//! Training movies for the fitted demo model: binary white noise, and procedurally generated
+//! naturalistic movies: a large image with a 1/f amplitude spectrum (the statistics of natural
+//! scenes: Field, J. Opt. Soc. Am. A 1987) viewed through the frame as it drifts with a
+//! temporally correlated velocity (an Ornstein-Uhlenbeck process) interrupted by occasional
+//! jumps to a new position (saccade-like).
+
+use ndarray::{Array2, Array3};
+use rand::rngs::ChaCha8Rng;
+use rand::{RngExt, SeedableRng};
+use rand_distr::{Distribution, StandardNormal};
+use rustfft::{num_complex::Complex, FftPlanner};
+
+/// A `size x size` image with amplitude spectrum 1/f and random phases, scaled to RMS contrast
+/// `rms` and clipped to -1..1.
+pub fn pink_image(size: usize, rms: f64, rng: &mut ChaCha8Rng) -> Array2<f32> {
+    let mut spec: Vec<Complex<f64>> = (0..size * size)
+        .map(|i| {
+            let (ky, kx) = (freq(i / size, size), freq(i % size, size));
+            let f = (ky * ky + kx * kx).sqrt();
+            if f == 0.0 {
+                Complex::new(0.0, 0.0)
+            } else {
+                let phase = rng.random_range(0.0..std::f64::consts::TAU);
+                Complex::from_polar(1.0 / f, phase)
+            }
+        })
+        .collect();
+    fft2(&mut spec, size, true);
+    // The real part of an inverse transform of random phases keeps the 1/f amplitude spectrum.
+    let real: Vec<f64> = spec.iter().map(|c| c.re).collect();
+    let mean = real.iter().sum::<f64>() / real.len() as f64;
+    let sd = (real.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / real.len() as f64).sqrt().max(1e-12);
+    Array2::from_shape_vec((size, size), real.iter().map(|v| ((v - mean) / sd * rms).clamp(-1.0, 1.0) as f32).collect())
+        .expect("size * size values")
+}
+
+/// Signed frequency (cycles per image) of FFT index `k`.
+fn freq(k: usize, n: usize) -> f64 {
+    if k <= n / 2 {
+        k as f64
+    } else {
+        k as f64 - n as f64
+    }
+}
+
+/// In-place 2-D FFT of a row-major `n x n` array (inverse when `inverse`).
+fn fft2(data: &mut [Complex<f64>], n: usize, inverse: bool) {
+    let mut planner = FftPlanner::new();
+    let fft = if inverse { planner.plan_fft_inverse(n) } else { planner.plan_fft_forward(n) };
+    for row in data.chunks_mut(n) {
+        fft.process(row);
+    }
+    let mut col = vec![Complex::new(0.0, 0.0); n];
+    for x in 0..n {
+        for y in 0..n {
+            col[y] = data[y * n + x];
+        }
+        fft.process(&mut col);
+        for y in 0..n {
+            data[y * n + x] = col[y];
+        }
+    }
+}
+
+/// A naturalistic movie `[frames, height, width]`: a view onto a pink image of `4 x` the frame
+/// size, moving with an Ornstein-Uhlenbeck velocity (s.d. `speed_px` pixels per frame,
+/// correlation time `tau_frames`) and jumping to a random position with probability `jump` per
+/// frame. Positions wrap around (the image is periodic).
+pub fn naturalistic(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let size = 4 * height.max(width).next_power_of_two();
+    let image = pink_image(size, 0.35, &mut rng);
+    let (speed_px, tau_frames, jump) = (0.3, 20.0, 0.01);
+    let (mut y, mut x) = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
+    let (mut vy, mut vx) = (0.0f64, 0.0f64);
+    let decay = (-1.0 / tau_frames as f64).exp();
+    let kick = speed_px * (1.0 - decay * decay).sqrt();
+    let mut movie = Array3::zeros((frames, height, width));
+    for t in 0..frames {
+        if rng.random_range(0.0..1.0) < jump {
+            y = rng.random_range(0.0..size as f64);
+            x = rng.random_range(0.0..size as f64);
+        }
+        let (ny, nx): (f64, f64) = (StandardNormal.sample(&mut rng), StandardNormal.sample(&mut rng));
+        vy = decay * vy + kick * ny;
+        vx = decay * vx + kick * nx;
+        y = (y + vy).rem_euclid(size as f64);
+        x = (x + vx).rem_euclid(size as f64);
+        // Bilinear interpolation at the sub-pixel position.
+        let (y0, x0) = (y.floor(), x.floor());
+        let (fy, fx) = ((y - y0) as f32, (x - x0) as f32);
+        let at = |yy: usize, xx: usize| image[[yy % size, xx % size]];
+        for r in 0..height {
+            for c in 0..width {
+                let (yy, xx) = (y0 as usize + r, x0 as usize + c);
+                movie[[t, r, c]] = (1.0 - fy) * ((1.0 - fx) * at(yy, xx) + fx * at(yy, xx + 1))
+                    + fy * ((1.0 - fx) * at(yy + 1, xx) + fx * at(yy + 1, xx + 1));
+            }
+        }
+    }
+    movie
+}
+
+/// Binary white noise `[frames, height, width]` of `checker` x `checker` pixel squares, contrast
+/// +-`contrast`.
+pub fn binary_noise(
+    frames: usize,
+    height: usize,
+    width: usize,
+    checker: usize,
+    contrast: f32,
+    seed: u64,
+) -> Array3<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let (gh, gw) = (height.div_ceil(checker), width.div_ceil(checker));
+    let mut movie = Array3::zeros((frames, height, width));
+    for t in 0..frames {
+        let grid: Vec<f32> =
+            (0..gh * gw).map(|_| if rng.random_range(0..2) == 0 { -contrast } else { contrast }).collect();
+        for r in 0..height {
+            for c in 0..width {
+                movie[[t, r, c]] = grid[(r / checker) * gw + c / checker];
+            }
+        }
+    }
+    movie
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Slope of log radially averaged power against log frequency, over 4..size/4 cycles.
+    fn spectral_slope(img: &Array2<f32>) -> f64 {
+        let n = img.nrows();
+        let mut data: Vec<Complex<f64>> = img.iter().map(|&v| Complex::new(v as f64, 0.0)).collect();
+        fft2(&mut data, n, false);
+        let mut bins = vec![(0.0, 0usize); n];
+        for (i, c) in data.iter().enumerate() {
+            let f = (freq(i / n, n).powi(2) + freq(i % n, n).powi(2)).sqrt().round() as usize;
+            if f < n {
+                bins[f].0 += c.norm_sqr();
+                bins[f].1 += 1;
+            }
+        }
+        let pts: Vec<(f64, f64)> = (4..n / 4).map(|f| ((f as f64).ln(), (bins[f].0 / bins[f].1 as f64).ln())).collect();
+        let (mx, my) = pts.iter().fold((0.0, 0.0), |(a, b), p| (a + p.0, b + p.1));
+        let (mx, my) = (mx / pts.len() as f64, my / pts.len() as f64);
+        let num: f64 = pts.iter().map(|p| (p.0 - mx) * (p.1 - my)).sum();
+        num / pts.iter().map(|p| (p.0 - mx).powi(2)).sum::<f64>()
+    }
+
+    #[test]
+    fn pink_images_have_the_power_spectrum_of_natural_scenes() {
+        // Natural images: power falls as 1/f^2 (slope -2 on log-log axes; Field 1987, from memory).
+        let img = pink_image(128, 0.2, &mut ChaCha8Rng::seed_from_u64(3));
+        let slope = spectral_slope(&img);
+        assert!((slope + 2.0).abs() < 0.15, "slope {slope}");
+        // White noise for contrast: flat (slope 0).
+        let noise = binary_noise(1, 128, 128, 1, 1.0, 3).index_axis_move(ndarray::Axis(0), 0);
+        assert!(spectral_slope(&noise).abs() < 0.15);
+    }
+
+    #[test]
+    fn naturalistic_movies_move_smoothly_and_stay_in_range() {
+        let m = naturalistic(200, 20, 20, 9);
+        assert!(m.iter().all(|v| (-1.0..=1.0).contains(v)));
+        // Consecutive frames are far more alike than frames 100 apart (temporal correlation).
+        let corr = |a: usize, b: usize| {
+            let (x, y) = (m.index_axis(ndarray::Axis(0), a), m.index_axis(ndarray::Axis(0), b));
+            let (mx, my) = (x.mean().unwrap(), y.mean().unwrap());
+            let c: f32 = x.iter().zip(y.iter()).map(|(p, q)| (p - mx) * (q - my)).sum();
+            let vx: f32 = x.iter().map(|p| (p - mx).powi(2)).sum();
+            let vy: f32 = y.iter().map(|q| (q - my).powi(2)).sum();
+            c / (vx * vy).sqrt()
+        };
+        let near: f32 = (0..150).map(|t| corr(t, t + 1)).sum::<f32>() / 150.0;
+        let far: f32 = (0..50).map(|t| corr(t, t + 100)).sum::<f32>() / 50.0;
+        assert!(near > 0.8 && far < near - 0.3, "lag-1 {near}, lag-100 {far}");
+    }
+}
