@@ -73,7 +73,7 @@ pub fn naturalistic(frames: usize, height: usize, width: usize, seed: u64) -> Ar
     let (speed_px, tau_frames, jump) = (0.3, 20.0, 0.01);
     let (mut y, mut x) = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
     let (mut vy, mut vx) = (0.0f64, 0.0f64);
-    let decay = (-1.0 / tau_frames as f64).exp();
+    let decay = (-1.0 / tau_frames).exp();
     let kick = speed_px * (1.0 - decay * decay).sqrt();
     let mut movie = Array3::zeros((frames, height, width));
     for t in 0..frames {

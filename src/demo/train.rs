@@ -100,7 +100,7 @@ pub fn train_step(
     };
     let mut tensors: Vec<Tensor> = params
         .iter()
-        .map(|&p| graph.param_mut(p).map(|t| std::mem::take(t)))
+        .map(|&p| graph.param_mut(p).map(std::mem::take))
         .collect::<Option<_>>()
         .ok_or_else(|| Error::Usage("train_step: a listed parameter is not a parameter of the graph".into()))?;
     {
