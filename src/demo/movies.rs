@@ -70,7 +70,7 @@ pub fn naturalistic(frames: usize, height: usize, width: usize, seed: u64) -> Ar
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let size = 4 * height.max(width).next_power_of_two();
     let image = pink_image(size, 0.35, &mut rng);
-    let (speed_px, tau_frames, jump) = (0.3, 20.0, 0.01);
+    let (speed_px, tau_frames, jump): (f64, f64, f64) = (0.3, 20.0, 0.01);
     let (mut y, mut x) = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
     let (mut vy, mut vx) = (0.0f64, 0.0f64);
     let decay = (-1.0 / tau_frames).exp();
