@@ -65,6 +65,12 @@ impl Adam {
 /// Mean squared error of `out` (`[N, cells]` after flattening) against `target` `[N, cells]`,
 /// and its gradient with respect to `out`.
 pub fn mse(out: &Tensor, target: &Array2<f32>) -> Result<(f64, Tensor)> {
+    weighted_mse(out, target, &vec![1.0; target.ncols()])
+}
+
+/// As [`mse`], each cell's squared errors weighted (e.g. by 1 / its variance, so cells with large
+/// rates do not dominate the fit).
+pub fn weighted_mse(out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Result<(f64, Tensor)> {
     if out.len() != target.len() {
         return Err(Error::Usage(format!(
             "training targets hold {} values but the model gives {}",
@@ -75,27 +81,28 @@ pub fn mse(out: &Tensor, target: &Array2<f32>) -> Result<(f64, Tensor)> {
     let n = out.len() as f64;
     let mut grad = Tensor::zeros(IxDyn(out.shape()));
     let mut loss = 0.0;
-    for ((g, &o), &y) in grad.iter_mut().zip(out.iter()).zip(target.iter()) {
-        let d = o - y;
-        loss += (d as f64) * (d as f64);
-        *g = (2.0 * d as f64 / n) as f32;
+    let cells = target.ncols().max(1);
+    for (i, ((g, &o), &y)) in grad.iter_mut().zip(out.iter()).zip(target.iter()).enumerate() {
+        let (d, w) = ((o - y) as f64, weights.get(i % cells).copied().unwrap_or(1.0) as f64);
+        loss += w * d * d;
+        *g = (2.0 * w * d / n) as f32;
     }
     Ok((loss / n, grad))
 }
 
-/// One Adam step on a batch: forward `x`, MSE against `target`, gradients for `params`, update.
-/// Returns the batch loss before the update.
+/// One Adam step on a batch: forward `x`, weighted MSE against `target` (per-cell `weights`),
+/// gradients for `params`, update. Returns the batch loss before the update.
 pub fn train_step(
     graph: &mut Graph,
     params: &[ValueId],
     adam: &mut Adam,
-    x: Tensor,
-    target: &Array2<f32>,
+    (x, target): (Tensor, &Array2<f32>),
+    weights: &[f32],
 ) -> Result<f64> {
     let out = graph.outputs[0];
     let (loss, grads) = {
         let tape = graph.forward(x, &[])?;
-        let (loss, seed) = mse(tape.value(out), target)?;
+        let (loss, seed) = weighted_mse(tape.value(out), target, weights)?;
         (loss, tape.gradients(&[(out, seed)], params)?)
     };
     let mut tensors: Vec<Tensor> = params

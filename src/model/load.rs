@@ -62,7 +62,11 @@ struct Walk {
 impl Model {
     /// Read, validate and prepare `path`.
     pub fn load(path: &Path, options: &LoadOptions) -> Result<Model> {
-        let proto = read_proto(path)?;
+        Self::from_proto(read_proto(path)?, path, options)
+    }
+
+    /// Validate and prepare a model already in memory; `path` names it in messages and records.
+    pub fn from_proto(proto: ModelProto, path: &Path, options: &LoadOptions) -> Result<Model> {
         let err = |message: String| Error::Model { path: path.into(), message };
         let opset =
             proto.opset_import.iter().find(|o| o.domain.is_empty() || o.domain == "ai.onnx").map_or(1, |o| o.version);
