@@ -7,6 +7,7 @@ use super::planted::{synthetic_sensor, LAGS, SIZE};
 use super::train::{train_step, Adam};
 use crate::model::builder::OnnxBuilder;
 use crate::model::{LoadOptions, Model};
+use crate::response::measure::correlation;
 use crate::response::{rates, windows_at};
 use crate::{Result, Tensor};
 use ndarray::{concatenate, Array2, Array3, Axis, IxDyn};
@@ -118,15 +119,6 @@ fn dataset(planted: &Model, frames: usize, seed: u64) -> Result<Vec<(Array3<f32>
             Ok((m, r))
         })
         .collect()
-}
-
-fn correlation(a: &[f64], b: &[f64]) -> f64 {
-    let n = a.len() as f64;
-    let (ma, mb) = (a.iter().sum::<f64>() / n, b.iter().sum::<f64>() / n);
-    let cov: f64 = a.iter().zip(b).map(|(x, y)| (x - ma) * (y - mb)).sum();
-    let va: f64 = a.iter().map(|x| (x - ma).powi(2)).sum();
-    let vb: f64 = b.iter().map(|y| (y - mb).powi(2)).sum();
-    cov / (va * vb).sqrt()
 }
 
 /// Fit the CNN; `progress(epoch, loss)` after each epoch. Returns the model and the report.

@@ -196,16 +196,8 @@ impl Protocol for WhiteNoise {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::response::measure::correlation;
     use crate::stimulus::Stimulus;
-
-    fn correlation(a: &[f64], b: &[f64]) -> f64 {
-        let n = a.len() as f64;
-        let (ma, mb) = (a.iter().sum::<f64>() / n, b.iter().sum::<f64>() / n);
-        let cov: f64 = a.iter().zip(b).map(|(x, y)| (x - ma) * (y - mb)).sum();
-        let va: f64 = a.iter().map(|x| (x - ma).powi(2)).sum();
-        let vb: f64 = b.iter().map(|y| (y - mb).powi(2)).sum();
-        cov / (va * vb).sqrt()
-    }
 
     #[test]
     fn the_sta_of_an_ln_cell_recovers_its_separable_filter() {
