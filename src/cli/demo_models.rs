@@ -28,6 +28,9 @@ pub struct DemoModelsArgs {
     /// Seed of movies, initial weights and batch order.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
+    /// Adam step size.
+    #[arg(long, default_value_t = FitSettings::default().lr)]
+    pub lr: f32,
 }
 
 /// Write the models.

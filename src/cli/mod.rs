@@ -2,6 +2,7 @@
 //! command turns its arguments into library calls and prints where it wrote its results.
 
 mod attribute;
+mod demo;
 mod demo_models;
 mod inspect;
 mod knockout;
@@ -40,6 +41,9 @@ pub enum Command {
     /// Cut the network down to the smallest set of hidden units that keeps a cell's response,
     /// read their filters and nonlinearities, and export the pruned model.
     Reduce(reduce::ReduceArgs),
+    /// Run the whole pipeline on the shipped demo model (synthetic sensor) and say where the
+    /// results are.
+    Demo(demo::DemoArgs),
     /// Write the demo models into a folder (maintainers: regenerates `models/`).
     #[command(hide = true)]
     DemoModels(demo_models::DemoModelsArgs),
@@ -163,6 +167,10 @@ pub fn run(cli: Cli) -> Result<()> {
             knockout::run(&a)
         }
         Command::DemoModels(a) => demo_models::run(&a),
+        Command::Demo(a) => {
+            a.common.apply()?;
+            demo::run(&a)
+        }
         Command::Reduce(a) => {
             a.job.common.apply()?;
             reduce::run(&a)

@@ -1,0 +1,43 @@
+//! `sufficit demo`: the whole pipeline on the shipped model, end to end.
+
+use serde_json::Value;
+use std::process::Command;
+
+fn json(p: &std::path::Path) -> Value {
+    serde_json::from_str(&std::fs::read_to_string(p).unwrap_or_else(|e| panic!("{}: {e}", p.display()))).unwrap()
+}
+
+#[test]
+fn demo_runs_every_stage_for_every_cell_and_says_where_it_wrote() {
+    let d = tempfile::tempdir().unwrap();
+    let out = d.path().join("demo");
+    let o = Command::new(env!("CARGO_BIN_EXE_sufficit"))
+        .args(["demo", "--out", out.to_str().unwrap(), "--quiet"])
+        .output()
+        .unwrap();
+    let text = String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr);
+    assert!(o.status.success(), "{text}");
+    assert!(text.contains(out.to_str().unwrap()), "demo must say where its results are: {text}");
+    for protocol in [
+        "omitted-flash",
+        "reversing-bar",
+        "differential-motion",
+        "flashes",
+        "steps",
+        "moving-bar",
+        "gratings",
+        "white-noise",
+    ] {
+        assert!(out.join("stimuli").join(protocol).join("stimulus.json").is_file(), "{protocol} stimulus");
+        assert!(out.join("responses").join(protocol).join("metrics.json").is_file(), "{protocol} metrics");
+    }
+    for cell in 0..3 {
+        let base = out.join(format!("cell-{cell}"));
+        let sub = json(&base.join("reduce/subcircuit.json"));
+        assert_eq!(sub["target"]["cell"], cell);
+        assert!(sub["fidelity"]["fve"].as_f64().unwrap() >= 0.9, "cell {cell}: {}", sub["fidelity"]);
+        assert!(json(&base.join("attribute/attribution.json"))["completeness_residual"].as_f64().unwrap() < 0.01);
+        assert!(!json(&base.join("knockout/knockouts.json"))["knockouts"].as_array().unwrap().is_empty());
+    }
+    assert_eq!(json(&out.join("run.json"))["command"], "demo");
+}
