@@ -40,7 +40,9 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
     if a.fit {
         let settings =
             FitSettings { seed: a.seed, train_frames: a.train_frames, epochs: a.epochs, ..Default::default() };
-        let (model, report) = fit(&settings, &|epoch, loss| eprintln!("epoch {epoch}: training loss {loss:.5}"))?;
+        let (model, report) = fit(&settings, &|epoch, loss, cells| {
+            eprintln!("epoch {epoch}: training loss {loss:.4}, per cell {cells:.3?}")
+        })?;
         let out = OutputDir::create(&a.out)?;
         out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&model))?;
         out.write_json(

@@ -90,20 +90,33 @@ pub fn weighted_mse(out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Resu
     Ok((loss / n, grad))
 }
 
+/// Each cell's weighted mean squared error (mean over the batch).
+pub fn per_cell_loss(out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Vec<f64> {
+    let cells = target.ncols().max(1);
+    let mut sums = vec![0.0; cells];
+    for (i, (&o, &y)) in out.iter().zip(target.iter()).enumerate() {
+        let w = weights.get(i % cells).copied().unwrap_or(1.0) as f64;
+        sums[i % cells] += w * ((o - y) as f64).powi(2);
+    }
+    let n = (target.nrows().max(1)) as f64;
+    sums.iter().map(|s| s / n).collect()
+}
+
 /// One Adam step on a batch: forward `x`, weighted MSE against `target` (per-cell `weights`),
-/// gradients for `params`, update. Returns the batch loss before the update.
+/// gradients for `params`, update. Returns the batch loss before the update, overall and per cell.
 pub fn train_step(
     graph: &mut Graph,
     params: &[ValueId],
     adam: &mut Adam,
     (x, target): (Tensor, &Array2<f32>),
     weights: &[f32],
-) -> Result<f64> {
+) -> Result<(f64, Vec<f64>)> {
     let out = graph.outputs[0];
-    let (loss, grads) = {
+    let (loss, cells, grads) = {
         let tape = graph.forward(x, &[])?;
         let (loss, seed) = weighted_mse(tape.value(out), target, weights)?;
-        (loss, tape.gradients(&[(out, seed)], params)?)
+        let cells = per_cell_loss(tape.value(out), target, weights);
+        (loss, cells, tape.gradients(&[(out, seed)], params)?)
     };
     let mut tensors: Vec<Tensor> = params
         .iter()
@@ -119,7 +132,7 @@ pub fn train_step(
             *slot = t;
         }
     }
-    Ok(loss)
+    Ok((loss, cells))
 }
 
 #[cfg(test)]
