@@ -153,7 +153,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(usize, f64, &[f64])) -> Result<(tr
     for epoch in 0..s.epochs {
         windows.shuffle(&mut rng);
         let mut total = 0.0;
-        let mut cells = vec![0.0; 3];
+        let mut cells = [0.0; 3];
         let mut steps = 0;
         for batch in windows.chunks(s.batch) {
             let parts: Vec<_> = batch
