@@ -5,7 +5,7 @@ mod common;
 use common::*;
 use ndarray::Array3;
 use sufficit::model::{LoadOptions, Model};
-use sufficit::reduction::knockout::{knockouts, target_frames};
+use sufficit::reduction::knockout::knockouts;
 use sufficit::reduction::{all_units, parse_units, silence, Clamp};
 use sufficit::response::rates_with;
 use sufficit::stimulus::{protocols, Canvas, Params, Stimulus};
@@ -51,9 +51,17 @@ fn a_unit_the_cell_cannot_see_has_no_effect_and_the_one_it_reads_ranks_first() {
     let m = model_with_dead_channel(d.path());
     let s = flashes(&m);
     let sets: Vec<_> = all_units(&m).into_iter().map(|u| vec![u]).collect();
-    let effects =
-        knockouts(&m, &s, 0, &target_frames(&s).unwrap(), &sets, Clamp::Baseline, &[(2.5, 2.5), (2.5, 2.5)], &|| {})
-            .unwrap();
+    let effects = knockouts(
+        &m,
+        &s,
+        0,
+        &protocols::target_frames(&s.meta).unwrap(),
+        &sets,
+        Clamp::Baseline,
+        &[(2.5, 2.5), (2.5, 2.5)],
+        &|| {},
+    )
+    .unwrap();
     assert_eq!(effects[0].units, vec!["r:0"]);
     assert!(effects[0].relative_rms_change > 0.0);
     let dead = effects.iter().find(|e| e.units == vec!["r:1"]).unwrap();

@@ -56,11 +56,7 @@ fn parse_cells(s: &str) -> Result<Vec<(usize, f32)>> {
 
 pub(super) fn parse_frames(spec: Option<&str>, meta: &Meta) -> Result<Vec<usize>> {
     let Some(spec) = spec else {
-        let p = protocols::find(&meta.protocol)?;
-        let mut frames: Vec<usize> = meta.windows_named(p.target_window()).flat_map(|w| w.start..w.end).collect();
-        frames.sort_unstable();
-        frames.dedup();
-        return Ok(frames);
+        return protocols::target_frames(meta);
     };
     let bad =
         || Error::Usage(format!("--window '{spec}' must be START:END in frames (10:40) or milliseconds (100ms:400ms)"));

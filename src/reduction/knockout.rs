@@ -55,16 +55,6 @@ fn cell_metrics(summary: &Value, cell: usize) -> Vec<(String, f64)> {
     out
 }
 
-/// The frames of the protocol's own analysis window (its target window), in order.
-pub fn target_frames(stim: &Stimulus) -> Result<Vec<usize>> {
-    let protocol = protocols::find(&stim.meta.protocol)?;
-    let mut frames: Vec<usize> =
-        stim.meta.windows_named(protocol.target_window()).flat_map(|w| w.start..w.end).collect();
-    frames.sort_unstable();
-    frames.dedup();
-    Ok(frames)
-}
-
 /// Silence each set in `sets`, measure, and rank by relative RMS change (largest first) over the
 /// analysis `frames`.
 #[allow(clippy::too_many_arguments)]

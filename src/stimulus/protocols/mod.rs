@@ -71,6 +71,15 @@ pub fn all() -> Vec<&'static dyn Protocol> {
     ]
 }
 
+/// The frames of the protocol's own analysis window (its target window) in `meta`, in order.
+pub fn target_frames(meta: &Meta) -> Result<Vec<usize>> {
+    let protocol = find(&meta.protocol)?;
+    let mut frames: Vec<usize> = meta.windows_named(protocol.target_window()).flat_map(|w| w.start..w.end).collect();
+    frames.sort_unstable();
+    frames.dedup();
+    Ok(frames)
+}
+
 /// Find a protocol by name, suggesting the nearest when it is unknown.
 pub fn find(name: &str) -> Result<&'static dyn Protocol> {
     let all = all();
