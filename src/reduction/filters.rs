@@ -100,6 +100,14 @@ pub fn first_conv(model: &Model, layer: ValueId) -> Option<&crate::engine::Node>
     None
 }
 
+/// The bias of output channel `c` of `conv` (0 when it has none or it is not a constant).
+pub fn conv_bias(model: &Model, conv: &crate::engine::Node, c: usize) -> f64 {
+    match conv.inputs.get(2).map(|&b| &model.graph.values[b].source) {
+        Some(crate::engine::Source::Param(t)) => t.iter().nth(c).copied().unwrap_or(0.0) as f64,
+        _ => 0.0,
+    }
+}
+
 /// The kernel of channel `c` of a first-layer conv as `[lags, height, width]`, for the layouts
 /// where the kernel's axes are the stimulus's (lags as channels, 3-D volume, 1-D line).
 pub fn kernel(model: &Model, conv: &crate::engine::Node, c: usize) -> Option<Array3<f32>> {

@@ -3,8 +3,10 @@
 //! nonlinearity. Deeper units: a scaled softplus fitted to generator vs activation over the
 //! stimulus, with its fraction of variance explained.
 
+use super::filters::conv_bias;
 use crate::engine::{Node, ValueId};
 use crate::model::Model;
+use crate::response::measure::min_max;
 use crate::{Error, Result, Tensor};
 use ndarray::{Array1, IxDyn};
 use serde::Serialize;
@@ -75,10 +77,7 @@ fn grid(lo: f64, hi: f64, n: usize) -> Vec<f64> {
 /// model's own, evaluated on `lo..=hi`.
 pub fn exact(model: &Model, conv: &Node, layer: ValueId, c: usize, lo: f64, hi: f64) -> Result<Curve> {
     let g = &model.graph;
-    let bias = match conv.inputs.get(2).map(|&b| &g.values[b].source) {
-        Some(crate::engine::Source::Param(t)) => t.iter().nth(c).copied().unwrap_or(0.0) as f64,
-        _ => 0.0,
-    };
+    let bias = conv_bias(model, conv, c);
     let gen = grid(lo, hi, 201);
     let rank = g.values[conv.output].shape.len();
     let channels = g.values[conv.output].shape[1];
@@ -117,7 +116,7 @@ pub fn fit_softplus(g: &Array1<f64>, y: &Array1<f64>) -> Option<SoftplusFit> {
     if g.len() < 4 {
         return None;
     }
-    let (gmin, gmax) = g.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+    let (gmin, gmax) = min_max(g);
     let span = (gmax - gmin).max(1e-12);
     // Search in (theta, log10 b).
     let sse = |t: f64, lb: f64| solve(g, y, 10f64.powf(lb), t).map_or(f64::INFINITY, |r| r.2);
@@ -159,7 +158,7 @@ pub fn fit_softplus(g: &Array1<f64>, y: &Array1<f64>) -> Option<SoftplusFit> {
 /// A fitted curve over the range of `g`.
 pub fn fitted(g: &Array1<f64>, y: &Array1<f64>) -> Option<Curve> {
     let fit = fit_softplus(g, y)?;
-    let (lo, hi) = g.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+    let (lo, hi) = min_max(g);
     let gen = grid(lo, hi, 201);
     let act: Vec<f64> = gen.iter().map(|&v| fit.at(v)).collect();
     let (threshold, gain) = threshold_and_gain(&gen, &act);

@@ -1,6 +1,7 @@
 //! Reduction plots: the fidelity-vs-size curve and the full vs reduced response.
 
 use crate::palette::{diverging, SERIES};
+use crate::response::measure::min_max;
 use plotters::prelude::*;
 
 /// Fidelity (fraction of variance explained) against the number of kept units, one series per
@@ -64,8 +65,7 @@ pub fn reduced_response_svg(times_ms: &[f64], full: &[f64], reduced: &[f64], cel
     {
         let root = SVGBackend::with_string(&mut svg, (720, 360)).into_drawing_area();
         root.fill(&WHITE).map_err(|e| e.to_string())?;
-        let (lo, hi) =
-            full.iter().chain(reduced).fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+        let (lo, hi) = min_max(full.iter().chain(reduced));
         let pad = ((hi - lo) * 0.08).max(1e-6);
         let (t0, t1) = (times_ms.first().copied().unwrap_or(0.0), times_ms.last().copied().unwrap_or(1.0).max(1e-6));
         let mut chart = ChartBuilder::on(&root)
@@ -149,8 +149,8 @@ pub fn unit_svg(f: &UnitFigure) -> Result<String, String> {
             .map_err(|e| e.to_string())?;
         c.draw_series(LineSeries::new(pts, SERIES[0].stroke_width(2))).map_err(|e| e.to_string())?;
         if let Some((g, y)) = f.curve {
-            let (gl, gh) = g.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
-            let (yl, yh) = y.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+            let (gl, gh) = min_max(g);
+            let (yl, yh) = min_max(y);
             let pad = ((yh - yl) * 0.05).max(1e-9);
             let mut c = ChartBuilder::on(&panels[2])
                 .caption("nonlinearity", ("sans-serif", 13))

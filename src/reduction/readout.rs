@@ -3,12 +3,13 @@
 //! cell and when it acts (conductance time course).
 
 use super::circuit::Circuit;
-use super::filters::{effective_filters, first_conv, generator, hot_position, kernel, separate, Separable};
+use super::filters::{conv_bias, effective_filters, first_conv, generator, hot_position, kernel, separate, Separable};
 use super::gray_path::GrayPath;
 use super::nonlinearity::{exact, fitted, Curve};
 use crate::attribution::LayerAttribution;
 use crate::engine::ValueId;
 use crate::model::Model;
+use crate::response::measure::min_max;
 use crate::response::windows_at;
 use crate::Result;
 use ndarray::{Array1, Array3};
@@ -76,18 +77,14 @@ pub fn read_out(
             let (kern, nonlinearity) = match conv.and_then(|cv| kernel(model, cv, c).map(|k| (cv, k))) {
                 Some((cv, k)) => {
                     // The generator range: the conv's output at the unit's position, bias removed.
-                    let bias = match cv.inputs.get(2).map(|&v| &g.values[v].source) {
-                        Some(crate::engine::Source::Param(t)) => t.iter().nth(c).copied().unwrap_or(0.0) as f64,
-                        _ => 0.0,
-                    };
+                    let bias = conv_bias(model, cv, c);
                     let z = tape.try_value(cv.output).map(|z| z.as_standard_layout().into_owned());
                     let gen: Vec<f64> = z
                         .as_ref()
                         .and_then(|z| z.as_slice())
                         .map(|z| (0..sample.len()).map(|s| z[(s * cs + c) * per + position] as f64 - bias).collect())
                         .unwrap_or_default();
-                    let (lo, hi) =
-                        gen.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+                    let (lo, hi) = min_max(&gen);
                     let (lo, hi) =
                         if hi > lo { (lo - 0.1 * (hi - lo), hi + 0.1 * (hi - lo)) } else { (lo - 1.0, hi + 1.0) };
                     (Some(separate(k)), exact(model, cv, l.layer, c, lo, hi).ok())

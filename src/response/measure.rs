@@ -55,6 +55,11 @@ pub fn json(v: f64) -> serde_json::Value {
     }
 }
 
+/// The smallest and largest of `values` ((inf, -inf) when there are none).
+pub fn min_max<'a>(values: impl IntoIterator<Item = &'a f64>) -> (f64, f64) {
+    values.into_iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)))
+}
+
 /// Pearson correlation of two equally long series (NaN when either is constant).
 pub fn correlation(a: &[f64], b: &[f64]) -> f64 {
     let n = a.len() as f64;
