@@ -78,18 +78,23 @@ pub fn rates_with(
         .map(|&first| {
             let n = chunk.min(frames - first);
             let input = model.binding.to_model_input(windows(movie, model.binding.lags, first, n));
-            let tape = g.forward(input, overrides)?;
-            let out = tape.outputs()[0];
-            let cells = out.len() / n;
-            let r = out
-                .as_standard_layout()
-                .into_owned()
-                .into_shape_with_order((n, cells))
-                .map_err(|e| Error::Usage(e.to_string()))?;
+            let r = per_sample(g.forward(input, overrides)?.outputs()[0])?;
             progress(n);
             Ok(r)
         })
         .collect::<Result<_>>()?;
+    stack(&parts)
+}
+
+/// A model output `[n, ...]` as rows of cells `[n, cells]` (each sample flattened).
+pub(crate) fn per_sample(out: &crate::Tensor) -> Result<Array2<f32>> {
+    let n = out.shape()[0];
+    let cells = out.len() / n.max(1);
+    out.as_standard_layout().into_owned().into_shape_with_order((n, cells)).map_err(|e| Error::Usage(e.to_string()))
+}
+
+/// Chunks of rates stacked in order.
+pub(crate) fn stack(parts: &[Array2<f32>]) -> Result<Array2<f32>> {
     let views: Vec<_> = parts.iter().map(|p| p.view()).collect();
     ndarray::concatenate(Axis(0), &views).map_err(|e| Error::Usage(e.to_string()))
 }

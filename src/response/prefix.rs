@@ -7,7 +7,7 @@ use crate::engine::batch::{chunk_len, DEFAULT_BUDGET_BYTES};
 use crate::engine::{Override, ValueId};
 use crate::model::Model;
 use crate::{Error, Result, Tensor};
-use ndarray::{Array2, Array3, Axis};
+use ndarray::{Array2, Array3};
 use rayon::prelude::*;
 
 /// The prefix's output for every frame of a movie, in chunks.
@@ -55,17 +55,8 @@ impl<'m> PrefixRates<'m> {
         let parts: Vec<Array2<f32>> = self
             .chunks
             .par_iter()
-            .map(|z| {
-                let n = z.shape()[0];
-                let out = g.forward_from(vec![(self.start, z.clone())], overrides)?.outputs()[0].clone();
-                let cells = out.len() / n;
-                out.as_standard_layout()
-                    .into_owned()
-                    .into_shape_with_order((n, cells))
-                    .map_err(|e| Error::Usage(e.to_string()))
-            })
+            .map(|z| super::per_sample(g.forward_from(vec![(self.start, z.clone())], overrides)?.outputs()[0]))
             .collect::<Result<_>>()?;
-        let views: Vec<_> = parts.iter().map(|p| p.view()).collect();
-        ndarray::concatenate(Axis(0), &views).map_err(|e| Error::Usage(e.to_string()))
+        super::stack(&parts)
     }
 }
