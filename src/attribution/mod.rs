@@ -120,7 +120,8 @@ pub fn resolve_layers(model: &Model, spec: &str) -> Result<Vec<ValueId>> {
         .collect()
 }
 
-fn seed_for(model: &Model, cells: &[(usize, f32)]) -> Result<Tensor> {
+/// dF/d(output) for one window: the target cells' weights (checked against the model's cells).
+pub(crate) fn seed_for(model: &Model, cells: &[(usize, f32)]) -> Result<Tensor> {
     let g = &model.graph;
     let shape = &g.values[g.outputs[0]].shape;
     let count: usize = shape[1..].iter().product();

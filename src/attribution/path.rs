@@ -97,7 +97,7 @@ pub struct PathResult {
 }
 
 /// Repeat the seed for every sample of a batch of `n` windows.
-fn seeds(seed: &Tensor, n: usize) -> Tensor {
+pub(crate) fn seeds(seed: &Tensor, n: usize) -> Tensor {
     let mut shape = seed.shape().to_vec();
     shape[0] = n;
     seed.broadcast(IxDyn(&shape)).map_or_else(|| seed.clone(), |v| v.to_owned())

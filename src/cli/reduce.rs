@@ -10,10 +10,11 @@ use crate::reduction::circuit::{reduce, Plan};
 use crate::reduction::edges::edges;
 use crate::reduction::export::export;
 use crate::reduction::fidelity::Criterion;
+use crate::reduction::gray_path::GrayPath;
 use crate::reduction::knockout::knockouts;
 use crate::reduction::readout::{read_out, UnitReadout};
 use crate::reduction::{plot, Clamp, Unit};
-use crate::response::{measure::json as num, rf_centres};
+use crate::response::{measure::json as num, rf_centres, windows_at};
 use crate::{Error, Result};
 use clap::Args;
 use serde_json::json;
@@ -148,10 +149,13 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
     let t_reduce = t2.elapsed().as_secs_f64();
     bar.set_message("circuit edges and filters");
     let t3 = Instant::now();
-    let edge_list = edges(&model, &stim.movie, a.cell, &frames, &circuit, att.steps.min(16))?;
+    // One gray-to-stimulus path over the analysis windows serves the edges and the filters.
+    let b = &model.binding;
+    let path = GrayPath::new(&model.graph, &b.to_model_input(windows_at(&stim.movie, b.lags, &frames)))?;
+    let edge_list = edges(&model, &path, a.cell, &circuit, att.steps.min(16))?;
     let t_edges = t3.elapsed().as_secs_f64();
     let t3 = Instant::now();
-    let units = read_out(&model, &stim.movie, &frames, &circuit, &layer_ids, &att.layers, att.steps)?;
+    let units = read_out(&model, &stim.movie, &path, &circuit, &layer_ids, &att.layers, att.steps)?;
     let t_read = t3.elapsed().as_secs_f64();
     bar.set_message("knock-outs of the kept units");
     let t4 = Instant::now();

@@ -7,11 +7,13 @@
 //! (the chain rule; Dhamdhere, Sundararajan & Yan 2019 define conductance through one layer).
 
 use super::circuit::Circuit;
+use super::gray_path::GrayPath;
+use crate::attribution::path::seeds as repeat_seed;
+use crate::attribution::seed_for;
 use crate::engine::ValueId;
 use crate::model::Model;
-use crate::response::windows_at;
-use crate::{Error, Result, Tensor};
-use ndarray::{Array3, Axis, IxDyn};
+use crate::{Result, Tensor};
+use ndarray::{Axis, IxDyn};
 use rayon::prelude::*;
 use serde::Serialize;
 
@@ -36,34 +38,17 @@ fn only_channel(t: &Tensor, c: usize) -> Tensor {
     m
 }
 
-/// Edges of `circuit` for `cell` over the analysis `frames`, with `steps` midpoint steps.
-pub fn edges(
-    model: &Model,
-    movie: &Array3<f32>,
-    cell: usize,
-    frames: &[usize],
-    circuit: &Circuit,
-    steps: usize,
-) -> Result<Vec<Edge>> {
+/// Edges of `circuit` for `cell` along `path` (gray to the analysis windows), with `steps`
+/// midpoint steps.
+pub fn edges(model: &Model, path: &GrayPath, cell: usize, circuit: &Circuit, steps: usize) -> Result<Vec<Edge>> {
     let g = &model.graph;
-    let b = &model.binding;
-    let x = b.to_model_input(windows_at(movie, b.lags, frames));
     let overrides = circuit.overrides();
     let out = g.outputs[0];
     let mut layers: Vec<(ValueId, Vec<usize>)> = circuit.layers.iter().map(|l| (l.layer, l.channels.clone())).collect();
     layers.sort_by_key(|(l, _)| *l);
     let ids: Vec<ValueId> = layers.iter().map(|(l, _)| *l).collect();
-    let out_shape = &g.values[out].shape;
-    let per_cell: usize = out_shape[1..].iter().product();
-    let n = x.shape()[0];
-    let mut seed_shape = out_shape.clone();
-    seed_shape[0] = n;
-    let mut seed = Tensor::zeros(IxDyn(&seed_shape));
-    for s in 0..n {
-        seed.as_slice_mut().ok_or_else(|| Error::Usage("output layout".into()))?[s * per_cell + cell] = 1.0;
-    }
+    let seed = repeat_seed(&seed_for(model, &[(cell, 1.0)])?, path.windows());
     let h = 1.0 / steps as f64;
-    let path = super::gray_path::GrayPath::new(g, &x)?;
     // Per step: conductance of each kept unit, and the flow from each kept lower unit to each kept upper unit.
     type Sums = (Vec<Vec<f64>>, Vec<Vec<Vec<f64>>>);
     let per_step: Vec<Sums> = (0..steps)

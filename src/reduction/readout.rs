@@ -38,11 +38,11 @@ pub struct UnitReadout {
 }
 
 /// Read out every kept channel of `circuit`. `attributions` match `layers` in order; `steps`
-/// path steps average the effective filters; `frames` are the analysis frames.
+/// steps along `path` (gray to the analysis windows) average the effective filters.
 pub fn read_out(
     model: &Model,
     movie: &Array3<f32>,
-    frames: &[usize],
+    path: &GrayPath,
     circuit: &Circuit,
     layers: &[ValueId],
     attributions: &[LayerAttribution],
@@ -55,7 +55,6 @@ pub fn read_out(
     let sample: Vec<usize> = (0..total).step_by(total.div_ceil(512).max(1)).collect();
     let mut out = Vec::new();
     let b = &model.binding;
-    let path = GrayPath::new(g, &b.to_model_input(windows_at(movie, b.lags, frames)))?;
     let mut kept: Vec<&super::circuit::LayerCircuit> = circuit.layers.iter().collect();
     kept.sort_by_key(|l| l.layer);
     for l in kept {
@@ -71,7 +70,7 @@ pub fn read_out(
         let flat = activity.as_standard_layout();
         let flat = flat.as_slice().unwrap_or(&[]);
         let sites: Vec<(usize, usize)> = l.channels.iter().map(|&c| (c, hot_position(&att.space, c))).collect();
-        let filters = effective_filters(model, &path, l.layer, &sites, &overrides, steps.clamp(1, 16))?;
+        let filters = effective_filters(model, path, l.layer, &sites, &overrides, steps.clamp(1, 16))?;
         for (&(c, position), eff) in sites.iter().zip(filters) {
             let y = Array1::from_iter((0..sample.len()).map(|s| flat[(s * cs + c) * per + position] as f64));
             let (kern, nonlinearity) = match conv.and_then(|cv| kernel(model, cv, c).map(|k| (cv, k))) {
