@@ -1,19 +1,11 @@
 //! `attribute` through the command line: its files, and its refusals.
 
+mod cli_support;
+use cli_support::{s, sufficit};
 use std::path::{Path, PathBuf};
-use std::process::Command;
-
-fn sufficit(args: &[&str]) -> (bool, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_sufficit")).args(args).output().unwrap();
-    (out.status.success(), format!("{}{}", String::from_utf8_lossy(&out.stdout), String::from_utf8_lossy(&out.stderr)))
-}
 
 fn model() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/models/pytorch_style.onnx")
-}
-
-fn s(p: &Path) -> &str {
-    p.to_str().unwrap()
 }
 
 #[test]

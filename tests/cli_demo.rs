@@ -1,22 +1,15 @@
 //! `sufficit demo`: the whole pipeline on the shipped model, end to end.
 
-use serde_json::Value;
-use std::process::Command;
+mod cli_support;
 
-fn json(p: &std::path::Path) -> Value {
-    serde_json::from_str(&std::fs::read_to_string(p).unwrap_or_else(|e| panic!("{}: {e}", p.display()))).unwrap()
-}
+use cli_support::{json, s, sufficit};
 
 #[test]
 fn demo_runs_every_stage_for_every_cell_and_says_where_it_wrote() {
     let d = tempfile::tempdir().unwrap();
     let out = d.path().join("demo");
-    let o = Command::new(env!("CARGO_BIN_EXE_sufficit"))
-        .args(["demo", "--out", out.to_str().unwrap(), "--quiet"])
-        .output()
-        .unwrap();
-    let text = String::from_utf8_lossy(&o.stdout).to_string() + &String::from_utf8_lossy(&o.stderr);
-    assert!(o.status.success(), "{text}");
+    let (ok, text) = sufficit(&["demo", "--out", s(&out), "--quiet"]);
+    assert!(ok, "{text}");
     assert!(text.contains(out.to_str().unwrap()), "demo must say where its results are: {text}");
     for protocol in [
         "omitted-flash",

@@ -1,24 +1,16 @@
 //! `stimulus` and `respond` end to end through the command line, and their refusals.
 
+mod cli_support;
 mod common;
 
+use cli_support::{s, sufficit};
 use common::*;
 use ndarray::{Array3, Array4};
 use std::path::{Path, PathBuf};
-use std::process::Command;
 use tract_onnx::pb;
-
-fn sufficit(args: &[&str]) -> (bool, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_sufficit")).args(args).output().unwrap();
-    (out.status.success(), format!("{}{}", String::from_utf8_lossy(&out.stdout), String::from_utf8_lossy(&out.stderr)))
-}
 
 fn fixture(name: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/models").join(name)
-}
-
-fn s(p: &Path) -> &str {
-    p.to_str().unwrap()
 }
 
 /// Expect a refusal mentioning every needle, with `out` left uncreated.

@@ -2,6 +2,9 @@
 //! phenomenon by the protocols' metrics and not the others', the shipped file is what the code
 //! writes, and reduction recovers the planted pathways.
 
+mod cli_support;
+
+use cli_support::{json, s, sufficit};
 use ndarray::Array2;
 use serde_json::Value;
 use std::path::Path;
@@ -103,24 +106,19 @@ fn the_object_motion_cell_alone_prefers_differential_motion() {
     assert!(index(0).abs() < 0.3 && index(1).abs() < 0.3, "others: {} {}", index(0), index(1));
 }
 
-/// Reduce `cell` on a stimulus folder drawn from `protocol` and return the kept channels per layer.
+/// Reduce `cell` on a stimulus folder drawn from `protocol` and return its subcircuit.json.
 fn reduce(protocol: &str, params: &[&str], cell: &str) -> Value {
     let d = tempfile::tempdir().unwrap();
-    let (stim, out) = (d.path().join("stim"), d.path().join("reduced"));
-    let bin = env!("CARGO_BIN_EXE_sufficit");
-    let m = shipped();
+    let (stim, out, m) = (d.path().join("stim"), d.path().join("reduced"), shipped());
     let mut args = vec!["stimulus", protocol];
     args.extend_from_slice(params);
-    args.extend_from_slice(&["--model", m.to_str().unwrap(), "--out", stim.to_str().unwrap(), "--quiet"]);
-    let o = std::process::Command::new(bin).args(&args).output().unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let o = std::process::Command::new(bin)
-        .args(["reduce", m.to_str().unwrap(), stim.to_str().unwrap(), "--cell", cell, "--layer", "all"])
-        .args(["--out", out.to_str().unwrap(), "--quiet"])
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    serde_json::from_str(&std::fs::read_to_string(out.join("subcircuit.json")).unwrap()).unwrap()
+    args.extend_from_slice(&["--model", s(&m), "--out", s(&stim), "--quiet"]);
+    let (ok, text) = sufficit(&args);
+    assert!(ok, "{text}");
+    let (ok, text) =
+        sufficit(&["reduce", s(&m), s(&stim), "--cell", cell, "--layer", "all", "--out", s(&out), "--quiet"]);
+    assert!(ok, "{text}");
+    json(&out.join("subcircuit.json"))
 }
 
 fn kept(sub: &Value, layer: &str) -> Vec<u64> {

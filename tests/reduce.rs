@@ -1,27 +1,14 @@
 //! `reduce` on a planted circuit whose answer is known by construction: the kept channels, their
 //! filters and signs, minimality, the exported model, knock-out ranking, and refusals.
 
+mod cli_support;
 mod planted;
 
+use cli_support::{json, s, sufficit};
 use ndarray::{Array1, Array2};
 use ndarray_npy::read_npy;
 use planted::{planted_filters, write_planted};
-use serde_json::Value;
 use std::path::{Path, PathBuf};
-use std::process::Command;
-
-fn sufficit(args: &[&str]) -> (bool, String) {
-    let out = Command::new(env!("CARGO_BIN_EXE_sufficit")).args(args).output().unwrap();
-    (out.status.success(), format!("{}{}", String::from_utf8_lossy(&out.stdout), String::from_utf8_lossy(&out.stderr)))
-}
-
-fn s(p: &Path) -> &str {
-    p.to_str().unwrap()
-}
-
-fn json(p: &Path) -> Value {
-    serde_json::from_str(&std::fs::read_to_string(p).unwrap()).unwrap()
-}
 
 /// Pearson correlation.
 fn corr(a: &[f32], b: &[f32]) -> f64 {
