@@ -192,7 +192,11 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(usize, f64, &[f64])) -> Result<(tr
     let mut trained = Cnn { tensors: Vec::new() };
     for (name, _) in &cnn.tensors {
         let id = student.graph.find(name).ok_or_else(|| crate::Error::Usage(format!("no parameter '{name}'")))?;
-        let t = student.graph.param_mut(id).map(|t| t.clone()).unwrap_or_default();
+        let t = student
+            .graph
+            .param_mut(id)
+            .map(|t| t.clone())
+            .ok_or_else(|| crate::Error::Usage(format!("'{name}' is not a parameter of the fitted graph")))?;
         trained.tensors.push((name.clone(), t));
     }
     Ok((
