@@ -10,10 +10,12 @@ pub mod cli;
 pub mod demo;
 pub mod engine;
 pub mod error;
+pub mod figure;
 pub mod model;
 pub mod output;
 pub mod palette;
 pub mod reduction;
+pub mod report;
 pub mod response;
 pub mod stimulus;
 

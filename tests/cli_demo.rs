@@ -33,4 +33,16 @@ fn demo_runs_every_stage_for_every_cell_and_says_where_it_wrote() {
         assert!(!json(&base.join("knockout/knockouts.json"))["knockouts"].as_array().unwrap().is_empty());
     }
     assert_eq!(json(&out.join("run.json"))["command"], "demo");
+    // The report: every cell's sections, and the demo says where it is.
+    let report = out.join("report/report.html");
+    assert!(text.contains(report.to_str().unwrap()), "demo must say where the report is: {text}");
+    let html = std::fs::read_to_string(&report).unwrap();
+    for (cell, protocol) in [(0, "omitted-flash"), (1, "reversing-bar"), (2, "differential-motion")] {
+        for part in ["attribution", "circuit", "knockouts"] {
+            let id = format!("id=\"m1-cell-{cell}-{protocol}-{part}\"");
+            assert!(html.contains(&id), "{id} missing from the demo report");
+        }
+    }
+    assert!(html.matches("<figure class=\"image\"").count() == 8, "a stimulus strip per protocol");
+    assert!(html.contains("Kendall tau"), "baseline stability");
 }

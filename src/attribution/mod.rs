@@ -12,7 +12,7 @@ pub mod rank;
 
 pub use affine::frontier;
 pub use baseline::Baseline;
-pub use plot::{heatmap_svg, ranking_svg, rows_of};
+pub use plot::{rows_of, Heatmap, Ranking};
 pub use quadrature::Rule;
 
 use crate::engine::ValueId;

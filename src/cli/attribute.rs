@@ -1,6 +1,7 @@
 //! `sufficit attribute MODEL STIMULUS_DIR --cell C --layer NAME|auto|all --out DIR`.
 
-use crate::attribution::{self, rank::kendall_tau, Attribution, Baseline, Request, Rule, Steps};
+use crate::attribution::{self, rank::kendall_tau, Attribution, Baseline, Heatmap, Ranking, Request, Rule, Steps};
+use crate::figure::svg;
 use crate::output::{OutputDir, RunRecord};
 use crate::stimulus::{protocols, Meta};
 use crate::{Error, Result};
@@ -177,7 +178,7 @@ pub fn run(a: &AttributeArgs) -> Result<()> {
     }
     let (first, last) = (request.frames[0], request.frames[request.frames.len() - 1] + 1);
     let rows = attribution::rows_of(&result.layers.iter().map(|l| (l.name.clone(), &l.time)).collect::<Vec<_>>());
-    let heat = attribution::heatmap_svg(&rows, first, last, 1000.0 / stim.meta.frame_rate_hz).map_err(Error::Usage)?;
+    let heat = svg(&Heatmap { rows: &rows, first, last, frame_ms: 1000.0 / stim.meta.frame_rate_hz })?;
     out.write_bytes("conductance_time.svg", heat.as_bytes())?;
     let ranked: Vec<(String, f64)> = units_json(&result)
         .iter()
@@ -188,9 +189,11 @@ pub fn run(a: &AttributeArgs) -> Result<()> {
             )
         })
         .collect();
-    out.write_bytes("conductance_ranking.svg", attribution::ranking_svg(&ranked).map_err(Error::Usage)?.as_bytes())?;
+    out.write_bytes("conductance_ranking.svg", svg(&Ranking { units: &ranked })?.as_bytes())?;
     let json = json!({
         "schema": "sufficit/1",
+        "protocol": stim.meta.protocol,
+        "frame_rate_hz": stim.meta.frame_rate_hz,
         "target": {"cells": request.cells.iter().map(|(c, w)| json!({"cell": c, "weight": w})).collect::<Vec<_>>(),
                    "frames": [first, last], "summed_over_frames": request.frames.len()},
         "baseline": request.baseline.label(),

@@ -80,9 +80,11 @@ pub fn run(a: &DemoArgs) -> Result<()> {
     for (cell, protocol, _) in CELLS {
         let stim = s(&a.out.join("stimuli").join(protocol));
         let base = a.out.join(format!("cell-{cell}"));
-        for (command, extra) in
-            [("attribute", vec!["--layer", "all"]), ("reduce", vec!["--layer", "all"]), ("knockout", vec![])]
-        {
+        for (command, extra) in [
+            ("attribute", vec!["--layer", "all", "--compare-baselines", "blurred"]),
+            ("reduce", vec!["--layer", "all"]),
+            ("knockout", vec![]),
+        ] {
             say(&format!("cell {cell}, {protocol}: {command}"));
             let mut args = vec![command.to_string(), s(&model), stim.clone(), "--cell".into(), cell.to_string()];
             args.extend(extra.iter().map(|e| e.to_string()));
@@ -90,6 +92,9 @@ pub fn run(a: &DemoArgs) -> Result<()> {
             step(quiet(args))?;
         }
     }
+    say("report");
+    let report = a.out.join("report");
+    step(quiet(vec!["report".into(), s(&a.out), "--out".into(), s(&report)]))?;
     let mut record = RunRecord::new(
         "demo",
         Some(&model),
@@ -99,6 +104,11 @@ pub fn run(a: &DemoArgs) -> Result<()> {
     )?;
     record.timings = vec![("total".into(), t0.elapsed().as_secs_f64())];
     out.write_json("run.json", &record)?;
-    println!("demo results in {} ({:.0} s)", a.out.display(), t0.elapsed().as_secs_f64());
+    println!(
+        "demo results in {}; report: {} ({:.0} s)",
+        a.out.display(),
+        report.join("report.html").display(),
+        t0.elapsed().as_secs_f64()
+    );
     Ok(())
 }

@@ -38,10 +38,18 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
     crate::demo::write_planted(&a.out)?;
     println!("wrote {}", a.out.join(crate::demo::PLANTED_FILE).display());
     if a.fit {
-        let settings =
-            FitSettings { seed: a.seed, train_frames: a.train_frames, epochs: a.epochs, ..Default::default() };
-        let (model, report) = fit(&settings, &|epoch, loss, cells| {
-            eprintln!("epoch {epoch}: training loss {loss:.4}, per cell {cells:.3?}")
+        let settings = FitSettings {
+            seed: a.seed,
+            train_frames: a.train_frames,
+            epochs: a.epochs,
+            lr: a.lr,
+            ..Default::default()
+        };
+        let (model, report) = fit(&settings, &|e| {
+            eprintln!(
+                "epoch {}: training loss {:.4}, per cell {:.3?}, held-out r {:.3?}",
+                e.number, e.loss, e.cell_loss, e.heldout_correlation
+            )
         })?;
         let out = OutputDir::create(&a.out)?;
         out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&model))?;

@@ -7,6 +7,7 @@ mod demo_models;
 mod inspect;
 mod knockout;
 mod reduce;
+mod report;
 mod respond;
 mod stimulus;
 
@@ -41,6 +42,8 @@ pub enum Command {
     /// Cut the network down to the smallest set of hidden units that keeps a cell's response,
     /// read their filters and nonlinearities, and export the pruned model.
     Reduce(reduce::ReduceArgs),
+    /// Gather result folders into one self-contained HTML report and a Markdown summary.
+    Report(report::ReportArgs),
     /// Run the whole pipeline on the shipped demo model (synthetic sensor) and say where the
     /// results are.
     Demo(demo::DemoArgs),
@@ -166,6 +169,7 @@ pub fn run(cli: Cli) -> Result<()> {
             a.job.common.apply()?;
             knockout::run(&a)
         }
+        Command::Report(a) => report::run(&a),
         Command::DemoModels(a) => demo_models::run(&a),
         Command::Demo(a) => {
             a.common.apply()?;

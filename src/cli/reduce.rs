@@ -4,6 +4,7 @@
 use super::attribute::parse_frames;
 use super::knockout::write_knockouts;
 use crate::attribution::{self, Baseline, Request, Rule, Steps};
+use crate::figure::svg;
 use crate::model::{LoadOptions, Model};
 use crate::output::{OutputDir, RunRecord};
 use crate::reduction::circuit::{reduce, Plan};
@@ -198,7 +199,7 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
             pixel_um: stim.meta.pixel_size_um,
             frame_ms: 1000.0 / stim.meta.frame_rate_hz,
         };
-        out.write_bytes(&format!("{stem}.svg"), plot::unit_svg(&figure).map_err(Error::Usage)?.as_bytes())?;
+        out.write_bytes(&format!("{stem}.svg"), svg(&figure)?.as_bytes())?;
         if let Some(c) = &u.nonlinearity {
             let csv: String = std::iter::once("generator,activation\n".to_string())
                 .chain(c.generator.iter().zip(&c.activation).map(|(g, y)| format!("{g},{y}\n")))
@@ -222,16 +223,12 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
             p.fidelity.peak_amplitude_error,
             p.fidelity.peak_timing_error_frames
         );
-        let key = format!("{name} {level} ({})", p.phase);
-        match series.iter_mut().find(|(k, _)| *k == key) {
-            Some((_, v)) => v.push((p.size, p.fidelity.fve)),
-            None => series.push((key, vec![(p.size, p.fidelity.fve)])),
-        }
+        plot::add_curve_point(&mut series, format!("{name} {level} ({})", p.phase), p.size, p.fidelity.fve);
     }
     out.write_bytes("fidelity_curve.csv", curve_csv.as_bytes())?;
     out.write_bytes(
         "fidelity_curve.svg",
-        plot::fidelity_curve_svg(&series, a.fidelity).map_err(Error::Usage)?.as_bytes(),
+        svg(&plot::FidelityCurve { series: &series, target: a.fidelity })?.as_bytes(),
     )?;
     let frame_ms = 1000.0 / stim.meta.frame_rate_hz;
     let times: Vec<f64> = frames.iter().map(|&f| f as f64 * frame_ms).collect();
@@ -242,7 +239,8 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
     out.write_bytes("reduced_response.csv", resp.as_bytes())?;
     out.write_bytes(
         "reduced_response.svg",
-        plot::reduced_response_svg(&times, &circuit.full, &circuit.reduced, a.cell).map_err(Error::Usage)?.as_bytes(),
+        svg(&plot::ReducedResponse { times_ms: &times, full: &circuit.full, reduced: &circuit.reduced, cell: a.cell })?
+            .as_bytes(),
     )?;
     write_knockouts(&out, &effects, &stim.meta.protocol, a.cell, &a.clamp)?;
 

@@ -102,22 +102,31 @@ pub fn per_cell_loss(out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Vec
     sums.iter().map(|s| s / n).collect()
 }
 
-/// One Adam step on a batch: forward `x`, weighted MSE against `target` (per-cell `weights`),
-/// gradients for `params`, update. Returns the batch loss before the update, overall and per cell.
+/// A batch's weighted MSE (overall and per cell) and its gradients with respect to `params`:
+/// forward `x`, compare with `target` (per-cell `weights`), reverse mode. Nothing is updated.
+pub fn batch_gradients(
+    graph: &Graph,
+    params: &[ValueId],
+    (x, target): (Tensor, &Array2<f32>),
+    weights: &[f32],
+) -> Result<(f64, Vec<f64>, Vec<Tensor>)> {
+    let out = graph.outputs[0];
+    let tape = graph.forward(x, &[])?;
+    let (loss, seed) = weighted_mse(tape.value(out), target, weights)?;
+    let cells = per_cell_loss(tape.value(out), target, weights);
+    Ok((loss, cells, tape.gradients(&[(out, seed)], params)?))
+}
+
+/// One Adam step on a batch (see [`batch_gradients`]). Returns the batch loss before the
+/// update, overall and per cell.
 pub fn train_step(
     graph: &mut Graph,
     params: &[ValueId],
     adam: &mut Adam,
-    (x, target): (Tensor, &Array2<f32>),
+    batch: (Tensor, &Array2<f32>),
     weights: &[f32],
 ) -> Result<(f64, Vec<f64>)> {
-    let out = graph.outputs[0];
-    let (loss, cells, grads) = {
-        let tape = graph.forward(x, &[])?;
-        let (loss, seed) = weighted_mse(tape.value(out), target, weights)?;
-        let cells = per_cell_loss(tape.value(out), target, weights);
-        (loss, cells, tape.gradients(&[(out, seed)], params)?)
-    };
+    let (loss, cells, grads) = batch_gradients(graph, params, batch, weights)?;
     let mut tensors: Vec<Tensor> = params
         .iter()
         .map(|&p| graph.param_mut(p).map(std::mem::take))

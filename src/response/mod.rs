@@ -7,7 +7,7 @@ mod plot;
 mod prefix;
 mod write;
 
-pub use plot::responses_svg;
+pub use plot::Responses;
 pub use prefix::PrefixRates;
 pub use write::write_responses;
 

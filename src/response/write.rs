@@ -3,7 +3,7 @@
 use crate::output::OutputDir;
 use crate::stimulus::protocols::Measured;
 use crate::stimulus::Meta;
-use crate::{Error, Result};
+use crate::Result;
 use ndarray::Array2;
 use serde_json::json;
 
@@ -30,7 +30,7 @@ pub fn write_responses(
         csv.push('\n');
     }
     out.write_bytes("responses.csv", csv.as_bytes())?;
-    let svg = super::responses_svg(rates, meta).map_err(|e| Error::Usage(format!("cannot draw responses.svg: {e}")))?;
+    let svg = crate::figure::svg(&super::Responses { rates, meta })?;
     out.write_bytes("responses.svg", svg.as_bytes())?;
     for (name, a) in &measured.arrays {
         out.write_npy(&format!("{name}.npy"), a)?;
