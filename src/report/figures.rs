@@ -117,14 +117,16 @@ fn dashes(p: (i32, i32), q: (i32, i32), len: f64) -> Vec<[(i32, i32); 2]> {
     out
 }
 
+/// Colour of the gaps between frames: not a gray level, so white and black frames stay visible.
+const SEPARATOR: [u8; 3] = [0, 114, 178];
+
 /// Frames `[n, height, width]` side by side as one gray image (contrast -1 black, 0 mean gray,
 /// +1 white), each pixel drawn as a `zoom` x `zoom` block with an 8 pixel gap between frames.
 pub fn strip_png(frames: &Array3<f32>, zoom: u32) -> image::RgbImage {
     let (n, h, w) = frames.dim();
     let gap = 8;
     let (fw, fh) = (w as u32 * zoom, h as u32 * zoom);
-    let mut img =
-        image::RgbImage::from_pixel((fw + gap) * n.max(1) as u32 - gap, fh.max(1), image::Rgb([255, 255, 255]));
+    let mut img = image::RgbImage::from_pixel((fw + gap) * n.max(1) as u32 - gap, fh.max(1), image::Rgb(SEPARATOR));
     for k in 0..n {
         for y in 0..fh {
             for x in 0..fw {
@@ -166,5 +168,6 @@ mod tests {
         assert_eq!(img.dimensions(), (2 + 8 + 2, 2));
         assert_eq!(img.get_pixel(0, 0)[0], 0);
         assert_eq!(img.get_pixel(11, 1)[0], 255);
+        assert_eq!(img.get_pixel(5, 0).0, SEPARATOR);
     }
 }
