@@ -18,6 +18,7 @@ pub mod reduction;
 pub mod report;
 pub mod response;
 pub mod stimulus;
+pub mod study;
 
 pub use error::{Error, Result};
 

@@ -9,7 +9,7 @@
 //! dy/da = f'(z(a)) (z(x) - z(x')).
 
 use super::quadrature::Rule;
-use crate::engine::batch::{chunk_len, DEFAULT_BUDGET_BYTES};
+use crate::engine::batch::{budget_bytes, chunk_len};
 use crate::engine::{Graph, ValueId};
 use crate::{Error, Result, Tensor};
 use ndarray::{Axis, IxDyn, Zip};
@@ -164,7 +164,7 @@ pub fn integrate(job: &PathJob, ends: &Endpoints, baseline: usize) -> Result<Pat
     // range of windows, sized to the memory budget.
     let points = job.rule.nodes(job.steps);
     let per_sample = g.bytes_per_sample().max(1);
-    let windows_per_item = chunk_len(per_sample * 3, DEFAULT_BUDGET_BYTES).clamp(1, n);
+    let windows_per_item = chunk_len(per_sample * 3, budget_bytes()).clamp(1, n);
     let items: Vec<(usize, std::ops::Range<usize>)> = (0..points.len())
         .flat_map(|k| (0..n).step_by(windows_per_item).map(move |s| (k, s..(s + windows_per_item).min(n))))
         .collect();

@@ -10,6 +10,7 @@ mod reduce;
 mod report;
 mod respond;
 mod stimulus;
+mod study;
 
 use crate::model::{InputLayout, LoadOptions, Model};
 use crate::response::check_size;
@@ -44,6 +45,11 @@ pub enum Command {
     Reduce(reduce::ReduceArgs),
     /// Gather result folders into one self-contained HTML report and a Markdown summary.
     Report(report::ReportArgs),
+    /// Run a whole battery from a study file (models x cells x protocols), resumably, optionally
+    /// one shard of it.
+    Study(study::StudyArgs),
+    /// Join the results of sharded study runs into one folder and report.
+    Merge(study::MergeArgs),
     /// Run the whole pipeline on the shipped demo model (synthetic sensor) and say where the
     /// results are.
     Demo(demo::DemoArgs),
@@ -170,6 +176,8 @@ pub fn run(cli: Cli) -> Result<()> {
             knockout::run(&a)
         }
         Command::Report(a) => report::run(&a),
+        Command::Study(a) => study::run_study(&a),
+        Command::Merge(a) => study::run_merge(&a),
         Command::DemoModels(a) => demo_models::run(&a),
         Command::Demo(a) => {
             a.common.apply()?;

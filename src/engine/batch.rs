@@ -3,9 +3,23 @@
 use crate::{Result, Tensor};
 use ndarray::{Axis, Slice};
 use rayon::prelude::*;
+use std::sync::atomic::{AtomicUsize, Ordering};
 
 /// Default activation memory budget for one chunk's tape: 1 GiB.
 pub const DEFAULT_BUDGET_BYTES: usize = 1 << 30;
+
+static BUDGET: AtomicUsize = AtomicUsize::new(DEFAULT_BUDGET_BYTES);
+
+/// The activation memory budget of one chunk's tape (chunks run one per thread), set from
+/// `--max-memory`.
+pub fn budget_bytes() -> usize {
+    BUDGET.load(Ordering::Relaxed)
+}
+
+/// Set the per-chunk budget for the rest of the process.
+pub fn set_budget_bytes(bytes: usize) {
+    BUDGET.store(bytes.max(1), Ordering::Relaxed);
+}
 
 /// Samples per chunk so that a chunk's tape (activations plus same-sized gradients) stays
 /// within `budget_bytes`; at least one.

@@ -5,7 +5,7 @@
 //! one layer share the forward pass up to that layer and run downstream as one batch.
 
 use super::fidelity::{fidelity, Criterion, Fidelity};
-use crate::engine::batch::{chunk_len, DEFAULT_BUDGET_BYTES};
+use crate::engine::batch::{budget_bytes, chunk_len};
 use crate::engine::{Override, Part, ValueId};
 use crate::model::Model;
 use crate::response::windows_at;
@@ -83,7 +83,7 @@ impl<'m> Judge<'m> {
         let others: Vec<Override> = fixed.iter().filter(|o| o.value != layer).cloned().collect();
         let n = a.shape()[0];
         let per_candidate = g.bytes_per_sample() * n;
-        let batch = chunk_len(per_candidate, DEFAULT_BUDGET_BYTES / 2).clamp(1, 64);
+        let batch = chunk_len(per_candidate, budget_bytes() / 2).clamp(1, 64);
         let clamp = clamp.broadcast(IxDyn(a.shape())).ok_or_else(|| Error::Usage("clamp shape".into()))?;
         let parts: Vec<Vec<Vec<f64>>> = keeps
             .par_chunks(batch)

@@ -78,10 +78,22 @@ pub fn sig(v: f64) -> String {
 }
 
 /// The stimulus a result folder was computed on, from the gathered stimulus folders or the path
-/// in its run.json.
+/// in its run.json. When the recorded folder has moved (results merged or copied), the gathered stimulus folder
+/// whose last three path components match it stands in.
 pub fn stimulus_of(folder: &Folder, g: &Gathered) -> Option<Stimulus> {
     let dir = folder.stimulus_dir()?;
-    let dir = g.stimuli.get(&canonical(&dir)).map(|f| f.dir.clone()).unwrap_or(dir);
+    let tail = |p: &Path| p.components().rev().take(3).map(|c| c.as_os_str().to_owned()).collect::<Vec<_>>();
+    let dir = g
+        .stimuli
+        .get(&canonical(&dir))
+        .map(|f| f.dir.clone())
+        .filter(|d| d.exists())
+        .or_else(|| {
+            (!dir.exists())
+                .then(|| g.stimuli.values().find(|f| tail(&f.dir) == tail(&dir)).map(|f| f.dir.clone()))
+                .flatten()
+        })
+        .unwrap_or(dir);
     read_stimulus(&dir).ok()
 }
 

@@ -11,7 +11,7 @@ pub use plot::Responses;
 pub use prefix::PrefixRates;
 pub use write::write_responses;
 
-use crate::engine::batch::{chunk_len, DEFAULT_BUDGET_BYTES};
+use crate::engine::batch::{budget_bytes, chunk_len};
 use crate::model::Model;
 use crate::{Error, Result};
 use ndarray::{s, Array2, Array3, Array4, Axis, IxDyn};
@@ -71,7 +71,7 @@ pub fn rates_with(
     check_size(model, movie)?;
     let g = &model.graph;
     let frames = movie.shape()[0];
-    let chunk = chunk_len(g.bytes_per_sample(), DEFAULT_BUDGET_BYTES).min(256);
+    let chunk = chunk_len(g.bytes_per_sample(), budget_bytes()).min(256);
     let starts: Vec<usize> = (0..frames).step_by(chunk).collect();
     let parts: Vec<Array2<f32>> = starts
         .par_iter()

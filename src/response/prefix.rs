@@ -3,7 +3,7 @@
 //! and each variant runs only the rest of the graph.
 
 use crate::attribution::frontier;
-use crate::engine::batch::{chunk_len, DEFAULT_BUDGET_BYTES};
+use crate::engine::batch::{budget_bytes, chunk_len};
 use crate::engine::{Override, ValueId};
 use crate::model::Model;
 use crate::{Error, Result, Tensor};
@@ -30,7 +30,7 @@ impl<'m> PrefixRates<'m> {
             downstream[node.output] = node.inputs.iter().any(|&i| i == start || downstream[i]);
         }
         let frames = movie.shape()[0];
-        let chunk = chunk_len(g.bytes_per_sample(), DEFAULT_BUDGET_BYTES).min(256);
+        let chunk = chunk_len(g.bytes_per_sample(), budget_bytes()).min(256);
         let starts: Vec<usize> = (0..frames).step_by(chunk).collect();
         let chunks = starts
             .par_iter()
