@@ -275,3 +275,65 @@ fn exported_reduced_model_runs_the_same_in_onnxruntime() {
         assert!(err < 1e-5, "{label}: engine vs onnxruntime relative difference {err}");
     }
 }
+
+#[test]
+fn reduce_reuses_a_matching_attribution_and_refuses_one_that_does_not_match() {
+    let d = tempfile::tempdir().unwrap();
+    let (model, stim, _) = setup(d.path());
+    let att = d.path().join("att");
+    let (ok, text) = sufficit(&[
+        "attribute",
+        s(&model),
+        s(&stim),
+        "--cell",
+        "0",
+        "--layer",
+        "all",
+        "--steps",
+        "16",
+        "--out",
+        s(&att),
+        "--quiet",
+    ]);
+    assert!(ok, "{text}");
+    let (fresh, reused) = (d.path().join("fresh"), d.path().join("reused"));
+    let common = ["--cell", "0", "--layer", "all", "--steps", "16"];
+    assert!(reduce_cli(&model, &stim, &fresh, &common).0);
+    let mut with = common.to_vec();
+    with.extend(["--attribution", s(&att)]);
+    let (ok, text) = reduce_cli(&model, &stim, &reused, &with);
+    assert!(ok, "{text}");
+    // The same path integral read back gives the same circuit, filters and numbers.
+    assert_eq!(
+        std::fs::read_to_string(fresh.join("subcircuit.json")).unwrap(),
+        std::fs::read_to_string(reused.join("subcircuit.json")).unwrap()
+    );
+    // Knock-outs of every unit from `knockout`, read back for the kept units, give the same
+    // subcircuit.json and knockouts.json as silencing them again.
+    let ko = d.path().join("ko");
+    assert!(sufficit(&["knockout", s(&model), s(&stim), "--cell", "0", "--out", s(&ko), "--quiet"]).0);
+    let both = d.path().join("both");
+    let mut with_ko = with.clone();
+    with_ko.extend(["--knockouts", s(&ko)]);
+    let (ok, text) = reduce_cli(&model, &stim, &both, &with_ko);
+    assert!(ok, "{text}");
+    for f in ["subcircuit.json", "knockouts.json"] {
+        assert_eq!(
+            std::fs::read_to_string(fresh.join(f)).unwrap(),
+            std::fs::read_to_string(both.join(f)).unwrap(),
+            "{f}"
+        );
+    }
+    // Another cell or another step setting is refused, naming what differs.
+    let (ok, text) = reduce_cli(
+        &model,
+        &stim,
+        &d.path().join("x"),
+        &["--cell", "1", "--layer", "all", "--steps", "16", "--attribution", s(&att)],
+    );
+    assert!(!ok && text.contains("target") && text.contains("does not match"), "{text}");
+    let (ok, text) =
+        reduce_cli(&model, &stim, &d.path().join("y"), &["--cell", "0", "--layer", "all", "--attribution", s(&att)]);
+    assert!(!ok && text.contains("step setting"), "{text}");
+    assert!(!d.path().join("x").exists() && !d.path().join("y").exists());
+}

@@ -179,3 +179,22 @@ fn bad_study_files_are_reported_all_at_once_before_any_work() {
     let (ok, text) = sufficit(&["study", s(&file), "--max-memory", "1K"]);
     assert!(!ok && text.contains("--max-memory"), "{text}");
 }
+
+#[test]
+fn the_shipped_example_study_runs_on_a_small_model_and_writes_its_report() {
+    // stimuli/example-study.toml with its model swapped for the small planted circuit: every
+    // protocol and setting of the shipped file runs end to end.
+    let d = tempfile::tempdir().unwrap();
+    planted::write_planted(&d.path().join("planted.onnx"));
+    let shipped =
+        std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("stimuli/example-study.toml")).unwrap();
+    let model_line = shipped.lines().find(|l| l.starts_with("models =")).unwrap();
+    let out_line = shipped.lines().find(|l| l.starts_with("out =")).unwrap();
+    let text = shipped.replace(model_line, "models = [\"planted.onnx\"]").replace(out_line, "out = \"results\"");
+    let file = d.path().join("example.toml");
+    std::fs::write(&file, text).unwrap();
+    let (ok, text) = sufficit(&["study", s(&file), "--quiet"]);
+    assert!(ok, "{text}");
+    assert!(text.contains("16 jobs: 16 run"), "8 protocols x 2 cells: {text}");
+    assert!(d.path().join("results/report/report.html").is_file());
+}

@@ -9,6 +9,7 @@ pub mod path;
 mod plot;
 pub mod quadrature;
 pub mod rank;
+pub mod stored;
 
 pub use affine::frontier;
 pub use baseline::Baseline;

@@ -94,7 +94,7 @@ fn units_json(a: &Attribution) -> Vec<serde_json::Value> {
         .iter()
         .enumerate()
         .map(|(r, (layer, c, v, g))| {
-            json!({"layer": layer, "channel": c, "conductance": v, "rank": r + 1,
+            json!({"layer": layer, "channel": c, "conductance": v, "rank": r + 1, "path_gradient": g,
             "sign": if *v >= 0.0 { 1 } else { -1 }, "effect": if *g >= 0.0 { "excitatory" } else { "inhibitory" }})
         })
         .collect()

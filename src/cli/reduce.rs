@@ -48,6 +48,14 @@ pub struct ReduceArgs {
     /// Path steps for the attribution that ranks the units: a number, or auto.
     #[arg(long, default_value = "auto")]
     pub steps: String,
+    /// Reuse the attribution `attribute` wrote in this folder (same stimulus, cell, window,
+    /// layers, gray baseline, midpoint rule, steps and seed) instead of computing it again.
+    #[arg(long, value_name = "DIR")]
+    pub attribution: Option<std::path::PathBuf>,
+    /// Reuse the single-unit knock-outs `knockout` wrote in this folder (same stimulus, cell,
+    /// clamp and window) instead of silencing the kept units again.
+    #[arg(long, value_name = "DIR")]
+    pub knockouts: Option<std::path::PathBuf>,
     /// What a dropped unit is clamped to: baseline (its activation under gray), mean or zero.
     #[arg(long, default_value = "baseline")]
     pub clamp: String,
@@ -122,7 +130,9 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
         "reduce",
         Some(&a.job.model),
         json!({"stimulus": a.job.stimulus.display().to_string(), "cell": a.cell, "layer": a.layer, "fidelity": a.fidelity,
-               "metric": a.metric, "positions": a.positions, "window": a.window, "steps": a.steps, "clamp": a.clamp}),
+               "metric": a.metric, "positions": a.positions, "window": a.window, "steps": a.steps, "clamp": a.clamp,
+               "attribution": a.attribution.as_ref().map(|p| p.display().to_string()),
+               "knockouts": a.knockouts.as_ref().map(|p| p.display().to_string())}),
         a.job.common.seed,
     )?;
     let bar = super::progress_bar(a.job.common.quiet, 1, "attribution");
@@ -141,7 +151,10 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
         seed: a.job.common.seed,
     };
     let t1 = Instant::now();
-    let att = attribution::attribute_with_progress(&model, &stim.movie, &request, &tick)?;
+    let att = match &a.attribution {
+        Some(dir) => attribution::stored::read_back(dir, &model, &a.job.stimulus, &request, &a.steps)?,
+        None => attribution::attribute_with_progress(&model, &stim.movie, &request, &tick)?,
+    };
     let t_attr = t1.elapsed().as_secs_f64();
     let plan = Plan { layers: layer_ids.clone(), criterion, target: a.fidelity, clamp, positions: a.positions };
     let t2 = Instant::now();
@@ -161,9 +174,23 @@ pub fn run(a: &ReduceArgs) -> Result<()> {
     bar.set_message("knock-outs of the kept units");
     let t4 = Instant::now();
     let kept: Vec<Unit> = units.iter().map(|u| Unit { layer: u.layer, channel: u.channel }).collect();
-    let sets: Vec<Vec<Unit>> = kept.iter().map(|u| vec![u.clone()]).collect();
-    let centres = rf_centres(&model, a.job.common.seed)?;
-    let effects = knockouts(&model, &stim, a.cell, &frames, &sets, clamp, &centres, &|| {})?;
+    let effects = match &a.knockouts {
+        Some(dir) => {
+            let labels: Vec<String> =
+                kept.iter().map(|u| format!("{}:{}", model.graph.values[u.layer].name, u.channel)).collect();
+            crate::reduction::knockout::read_back(
+                dir,
+                &a.job.stimulus,
+                (a.cell, &a.clamp, a.window.as_deref()),
+                &labels,
+            )?
+        }
+        None => {
+            let sets: Vec<Vec<Unit>> = kept.iter().map(|u| vec![u.clone()]).collect();
+            let centres = rf_centres(&model, a.job.common.seed)?;
+            knockouts(&model, &stim, a.cell, &frames, &sets, clamp, &centres, &|| {})?
+        }
+    };
     let t_knock = t4.elapsed().as_secs_f64();
     bar.finish_and_clear();
 

@@ -45,7 +45,7 @@ pub struct MergeArgs {
 /// Seconds of work per stimulus frame of a job, in units of one window's forward pass
 /// (attribution, reduction and knock-outs together), measured on the demo model: see
 /// docs/performance.md.
-const JOB_FORWARDS_PER_FRAME: f64 = 60.0;
+const JOB_FORWARDS_PER_FRAME: f64 = 34.0;
 
 /// Run one sufficit command in this process.
 fn exec(args: Vec<String>) -> Result<()> {

@@ -117,11 +117,87 @@ pub fn knockouts(
         });
         progress();
     }
+    rank(&mut effects);
+    Ok(effects)
+}
+
+/// Rank by relative RMS change, largest first (an undefined change, from a flat response, last),
+/// and sort by rank.
+fn rank(effects: &mut [Effect]) {
+    let key = |e: &Effect| if e.relative_rms_change.is_nan() { f64::NEG_INFINITY } else { e.relative_rms_change };
     let mut order: Vec<usize> = (0..effects.len()).collect();
-    order.sort_by(|&a, &b| effects[b].relative_rms_change.total_cmp(&effects[a].relative_rms_change));
+    order.sort_by(|&a, &b| key(&effects[b]).total_cmp(&key(&effects[a])));
     for (rank, &i) in order.iter().enumerate() {
         effects[i].rank = rank + 1;
     }
     effects.sort_by_key(|e| e.rank);
+}
+
+/// The single-unit knock-outs of `units` read back from a `knockout` folder (knockouts.json and
+/// run.json), re-ranked among themselves, so `reduce` need not silence them again. The folder
+/// must hold the same stimulus, cell, clamp and frames (its `--window` setting); otherwise the
+/// error names what differs.
+pub fn read_back(
+    dir: &std::path::Path,
+    stimulus: &std::path::Path,
+    (cell, clamp, window): (usize, &str, Option<&str>),
+    units: &[String],
+) -> crate::Result<Vec<Effect>> {
+    use crate::Error;
+    let read = |name: &str| -> crate::Result<Value> {
+        let p = dir.join(name);
+        let text = std::fs::read_to_string(&p).map_err(|e| Error::io("read", &p, e))?;
+        serde_json::from_str(&text).map_err(|e| Error::Usage(format!("'{}' is not valid JSON: {e}", p.display())))
+    };
+    let (doc, run) = (read("knockouts.json")?, read("run.json")?);
+    let same_stimulus =
+        run.pointer("/settings/stimulus").and_then(Value::as_str).map(std::fs::canonicalize).and_then(|p| p.ok())
+            == std::fs::canonicalize(stimulus).ok();
+    let checks = [
+        ("stimulus", same_stimulus),
+        ("cell", doc["cell"].as_u64() == Some(cell as u64)),
+        ("clamp", doc["clamp"].as_str() == Some(clamp)),
+        ("window", run.pointer("/settings/window").and_then(Value::as_str) == window),
+    ];
+    if let Some((what, _)) = checks.iter().find(|(_, ok)| !ok) {
+        return Err(Error::Usage(format!(
+            "the knock-outs in '{}' do not match this request (different {what}); leave out --knockouts or rerun \
+             knockout with matching settings",
+            dir.display()
+        )));
+    }
+    let f = |v: &Value| v.as_f64().unwrap_or(f64::NAN);
+    let rows = doc["knockouts"].as_array().cloned().unwrap_or_default();
+    let mut effects = Vec::new();
+    for u in units {
+        let row = rows
+            .iter()
+            .find(|r| r["units"].as_array().is_some_and(|x| x.len() == 1 && x[0] == u.as_str()))
+            .ok_or_else(|| Error::Usage(format!("'{}' has no knock-out of {u} alone", dir.display())))?;
+        effects.push(Effect {
+            units: vec![u.clone()],
+            relative_rms_change: f(&row["relative_rms_change"]),
+            fraction_variance_explained: f(&row["fraction_variance_explained"]),
+            mean_full: f(&row["mean_full"]),
+            mean_silenced: f(&row["mean_silenced"]),
+            metrics: row["metrics"]
+                .as_array()
+                .map(|m| {
+                    m.iter()
+                        .map(|x| {
+                            (
+                                x["metric"].as_str().unwrap_or("").to_string(),
+                                f(&x["full"]),
+                                f(&x["silenced"]),
+                                f(&x["change"]),
+                            )
+                        })
+                        .collect()
+                })
+                .unwrap_or_default(),
+            rank: 0,
+        });
+    }
+    rank(&mut effects);
     Ok(effects)
 }

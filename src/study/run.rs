@@ -98,7 +98,7 @@ fn common(seed: u64) -> [String; 3] {
     ["--quiet".into(), "--seed".into(), seed.to_string()]
 }
 
-/// Attribute, reduce and knock out one cell.
+/// Attribute, knock out and reduce one cell (reduce reuses the other two's results).
 fn run_job(plan: &Plan, j: usize, exec: Exec) -> Result<()> {
     let job = &plan.jobs[j];
     let sh = &plan.shared[job.shared];
@@ -125,6 +125,7 @@ fn run_job(plan: &Plan, j: usize, exec: Exec) -> Result<()> {
         att.extend(["--compare-baselines".into(), f.compare_baselines.join(",")]);
     }
     exec(att)?;
+    exec(base("knockout"))?;
     let mut red = base("reduce");
     red.extend([
         "--layer".into(),
@@ -136,8 +137,13 @@ fn run_job(plan: &Plan, j: usize, exec: Exec) -> Result<()> {
         "--metric".into(),
         f.metric.clone(),
     ]);
+    // reduce ranks units by the gray-baseline attribution: reuse the one just computed.
+    if f.baseline == "gray" {
+        red.extend(["--attribution".into(), s(&job.dir.join("attribute"))]);
+    }
+    // ... and the single-unit knock-outs of every unit for the kept ones.
+    red.extend(["--knockouts".into(), s(&job.dir.join("knockout"))]);
     exec(red)?;
-    exec(base("knockout"))?;
     seal(&job.dir, &job.hash, "attribute, reduce, knockout", t0.elapsed().as_secs_f64())
 }
 
