@@ -159,6 +159,7 @@ fn bad_study_files_are_reported_all_at_once_before_any_work() {
         "bad.toml:10: 'protocols[0].contrasts'",
         "'protocols[1].name'",
         "nearest: 'omitted-flash'",
+        "bad.toml:3: 'cells': cell 7 is beyond the outputs",
     ] {
         assert!(text.contains(needle), "missing {needle:?} in:\n{text}");
     }

@@ -105,13 +105,15 @@ pub fn run_study(a: &StudyArgs) -> Result<()> {
             .sum();
         println!(
             "{}: valid. {} models, {} protocols, {} jobs{} (model x protocol x cell); estimated {:.0} s of work \
-             with {threads} threads (rough: from one forward pass per model), memory bound {} MiB.",
+             with {threads} threads (rough: from one forward pass per model); memory: at least {} MiB, \
+             bounded by --max-memory {} MiB (batches grow to use it).",
             a.file.display(),
             plan.models.len(),
             plan.file.protocols.len(),
             mine.len(),
             shard.map_or(String::new(), |(k, n)| format!(" in shard {k}/{n} of {}", plan.jobs.len())),
             seconds,
+            (0..plan.models.len()).map(|i| memory::least_bytes(&plan, i, threads)).max().unwrap_or(0) >> 20,
             max >> 20
         );
         return Ok(());

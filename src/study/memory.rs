@@ -52,13 +52,20 @@ pub fn chunk_budget(max: u64, threads: usize) -> usize {
     (max / 2 / threads.max(1) as u64) as usize
 }
 
+/// The least memory model `i` needs (see [`check`]).
+pub fn least_bytes(plan: &Plan, i: usize, threads: usize) -> u64 {
+    let m = &plan.models[i];
+    let longest = plan.shared.iter().filter(|s| s.model == i).map(|s| s.frames).max().unwrap_or(0);
+    (TAPES_PER_THREAD * 2 * m.bytes_per_window * threads + 2 * longest * m.frame_bytes) as u64
+}
+
 /// The least memory each model needs: one window per chunk on every thread (three tapes at
 /// once in attribution), plus its longest stimulus movie twice (the movie and its windows in
 /// flight). Refuses the run, before any work, when that exceeds half of `max`.
 pub fn check(plan: &Plan, max: u64, threads: usize) -> Result<()> {
     for (i, m) in plan.models.iter().enumerate() {
+        let need = least_bytes(plan, i, threads);
         let longest = plan.shared.iter().filter(|s| s.model == i).map(|s| s.frames).max().unwrap_or(0);
-        let need = (TAPES_PER_THREAD * 2 * m.bytes_per_window * threads + 2 * longest * m.frame_bytes) as u64;
         if need > max / 2 {
             return Err(Error::Usage(format!(
                 "model '{}' needs at least about {} MiB with {threads} threads ({:.1} MiB per window, movies \
