@@ -73,6 +73,20 @@ impl OutputDir {
     }
 }
 
+/// Read a JSON result file, naming the file when it is missing or malformed.
+pub fn read_json(path: &Path) -> Result<serde_json::Value> {
+    let text = std::fs::read_to_string(path).map_err(|e| Error::io("read", path, e))?;
+    serde_json::from_str(&text)
+        .map_err(|e| Error::Usage(format!("'{}' is not valid JSON ({e}); was it written completely?", path.display())))
+}
+
+/// Read an f32 `.npy` array of any rank, naming the file when it is missing or of another type.
+pub fn read_npy(path: &Path) -> Result<crate::Tensor> {
+    use ndarray_npy::ReadNpyExt;
+    let f = std::fs::File::open(path).map_err(|e| Error::io("read", path, e))?;
+    crate::Tensor::read_npy(f).map_err(|e| Error::Usage(format!("'{}' is not an f32 .npy array: {e}", path.display())))
+}
+
 /// SHA-256 of a file, hex encoded.
 pub fn file_sha256(path: &Path) -> Result<String> {
     let bytes = std::fs::read(path).map_err(|e| Error::io("read", path, e))?;

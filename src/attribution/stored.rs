@@ -5,21 +5,11 @@
 
 use super::{Attribution, LayerAttribution, Request};
 use crate::model::Model;
-use crate::{Error, Result, Tensor};
+use crate::output::{read_json, read_npy};
+use crate::{Error, Result};
 use ndarray::Axis;
-use ndarray_npy::ReadNpyExt;
 use serde_json::Value;
 use std::path::Path;
-
-fn read_json(path: &Path) -> Result<Value> {
-    let text = std::fs::read_to_string(path).map_err(|e| Error::io("read", path, e))?;
-    serde_json::from_str(&text).map_err(|e| Error::Usage(format!("'{}' is not valid JSON: {e}", path.display())))
-}
-
-fn read_npy(path: &Path) -> Result<Tensor> {
-    let f = std::fs::File::open(path).map_err(|e| Error::io("read", path, e))?;
-    Tensor::read_npy(f).map_err(|e| Error::Usage(format!("'{}' is not an f32 .npy array: {e}", path.display())))
-}
 
 /// Read the attribution in `dir` for `request` on `stimulus` (folder) with the step setting
 /// `steps` ("auto" or a number); a mismatch is an error naming what differs.

@@ -2,10 +2,10 @@
 //! commands a user runs: every protocol drawn and answered, and for each demo cell its own
 //! protocol attributed, reduced and knocked out.
 
-use super::{run as run_command, Cli, Common};
+use super::{run_args, Common};
 use crate::output::{OutputDir, RunRecord};
 use crate::Result;
-use clap::{Args, Parser};
+use clap::Args;
 use serde_json::json;
 use std::path::Path;
 use std::time::Instant;
@@ -42,10 +42,6 @@ pub struct DemoArgs {
     pub common: Common,
 }
 
-fn step(args: Vec<String>) -> Result<()> {
-    run_command(Cli::parse_from(std::iter::once("sufficit".to_string()).chain(args)))
-}
-
 fn s(p: &Path) -> String {
     p.display().to_string()
 }
@@ -73,9 +69,9 @@ pub fn run(a: &DemoArgs) -> Result<()> {
         let mut args = vec!["stimulus".to_string(), protocol.to_string()];
         args.extend(params.iter().map(|p| p.to_string()));
         args.extend(["--model".into(), s(&model), "--out".into(), s(&stim)]);
-        step(quiet(args))?;
+        run_args(quiet(args))?;
         let resp = a.out.join("responses").join(protocol);
-        step(quiet(vec!["respond".into(), s(&model), s(&stim), "--out".into(), s(&resp)]))?;
+        run_args(quiet(vec!["respond".into(), s(&model), s(&stim), "--out".into(), s(&resp)]))?;
     }
     for (cell, protocol, _) in CELLS {
         let stim = s(&a.out.join("stimuli").join(protocol));
@@ -89,12 +85,12 @@ pub fn run(a: &DemoArgs) -> Result<()> {
             let mut args = vec![command.to_string(), s(&model), stim.clone(), "--cell".into(), cell.to_string()];
             args.extend(extra.iter().map(|e| e.to_string()));
             args.extend(["--out".into(), s(&base.join(command))]);
-            step(quiet(args))?;
+            run_args(quiet(args))?;
         }
     }
     say("report");
     let report = a.out.join("report");
-    step(quiet(vec!["report".into(), s(&a.out), "--out".into(), s(&report)]))?;
+    run_args(quiet(vec!["report".into(), s(&a.out), "--out".into(), s(&report)]))?;
     let mut record = RunRecord::new(
         "demo",
         Some(&model),

@@ -155,6 +155,14 @@ fn progress_bar(quiet: bool, len: u64, msg: &'static str) -> indicatif::Progress
     bar
 }
 
+/// Run one sufficit command in this process from its arguments (without the program name):
+/// `demo` and `study` run the same code paths a user's commands do.
+pub(crate) fn run_args(args: Vec<String>) -> Result<()> {
+    let cli = Cli::try_parse_from(std::iter::once("sufficit".to_string()).chain(args))
+        .map_err(|e| Error::Usage(format!("internal command: {e}")))?;
+    run(cli)
+}
+
 /// Run the parsed command.
 pub fn run(cli: Cli) -> Result<()> {
     match cli.command {

@@ -2,7 +2,7 @@
 
 use crate::study::{file, memory, merge, plan, run};
 use crate::{Error, Result};
-use clap::{Args, Parser};
+use clap::Args;
 use std::path::PathBuf;
 use std::time::Instant;
 
@@ -46,13 +46,6 @@ pub struct MergeArgs {
 /// (attribution, reduction and knock-outs together), measured on the demo model: see
 /// docs/performance.md.
 const JOB_FORWARDS_PER_FRAME: f64 = 34.0;
-
-/// Run one sufficit command in this process.
-fn exec(args: Vec<String>) -> Result<()> {
-    let cli = super::Cli::try_parse_from(std::iter::once("sufficit".to_string()).chain(args))
-        .map_err(|e| Error::Usage(format!("internal command: {e}")))?;
-    super::run(cli)
-}
 
 /// Seconds of one window's forward pass through each model (best of 5 batches of 8, after a
 /// warm-up).
@@ -119,7 +112,7 @@ pub fn run_study(a: &StudyArgs) -> Result<()> {
         return Ok(());
     }
     let t0 = Instant::now();
-    let reports = run::run(&plan, shard, a.quiet, &exec)?;
+    let reports = run::run(&plan, shard, a.quiet, &super::run_args)?;
     let failed: Vec<&run::JobReport> = reports.iter().filter(|r| matches!(r.status, run::Status::Failed(_))).collect();
     if !a.quiet {
         println!("{:<60} {:>9}  status", "job", "seconds");

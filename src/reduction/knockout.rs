@@ -144,11 +144,7 @@ pub fn read_back(
     units: &[String],
 ) -> crate::Result<Vec<Effect>> {
     use crate::Error;
-    let read = |name: &str| -> crate::Result<Value> {
-        let p = dir.join(name);
-        let text = std::fs::read_to_string(&p).map_err(|e| Error::io("read", &p, e))?;
-        serde_json::from_str(&text).map_err(|e| Error::Usage(format!("'{}' is not valid JSON: {e}", p.display())))
-    };
+    let read = |name: &str| crate::output::read_json(&dir.join(name));
     let (doc, run) = (read("knockouts.json")?, read("run.json")?);
     let same_stimulus =
         run.pointer("/settings/stimulus").and_then(Value::as_str).map(std::fs::canonicalize).and_then(|p| p.ok())

@@ -1,6 +1,7 @@
 //! Finding results: every folder under the given paths that holds a sufficit result JSON, read
 //! with its `run.json`, its schema version checked, and grouped by the model it came from.
 
+use crate::output::read_json;
 use crate::{Error, Result};
 use serde_json::Value;
 use std::collections::BTreeMap;
@@ -178,13 +179,6 @@ fn walk(dir: &Path, out: &mut Vec<PathBuf>) -> Result<()> {
 /// A path made absolute and free of `..` where the file system allows.
 pub fn canonical(p: &Path) -> PathBuf {
     std::fs::canonicalize(p).unwrap_or_else(|_| p.to_path_buf())
-}
-
-/// Parse a JSON file.
-pub fn read_json(path: &Path) -> Result<Value> {
-    let text = std::fs::read_to_string(path).map_err(|e| Error::io("read", path, e))?;
-    serde_json::from_str(&text)
-        .map_err(|e| Error::Usage(format!("'{}' is not valid JSON ({e}); was it written completely?", path.display())))
 }
 
 /// Accept `"schema": "sufficit/1"`; name the file and the versions otherwise.

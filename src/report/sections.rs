@@ -4,9 +4,10 @@
 
 use super::doc::Block;
 use super::figures::{strip_png, CircuitDiagram, Edge};
-use super::gather::{canonical, read_json, Folder, Gathered};
+use super::gather::{canonical, Folder, Gathered};
 use crate::attribution::{Heatmap, Ranking};
 use crate::figure::{png, svg, Figure};
+use crate::output::{read_json, read_npy};
 use crate::reduction::plot::{add_curve_point, FidelityCurve, ReducedResponse, UnitFigure};
 use crate::response::Responses;
 use crate::stimulus::{read_stimulus, Stimulus};
@@ -23,16 +24,10 @@ pub fn figure(id: &str, caption: &str, chart: bool, f: &impl Figure) -> Result<B
     Ok(Block::Figure { id: id.into(), caption: caption.into(), chart, svg: svg(f)?, png: png(f)? })
 }
 
-/// Read a `.npy` f32 array of any rank.
-fn npy(path: &Path) -> Result<ndarray::ArrayD<f32>> {
-    use ndarray_npy::ReadNpyExt;
-    let f = std::fs::File::open(path).map_err(|e| Error::io("read", path, e))?;
-    ndarray::ArrayD::<f32>::read_npy(f)
-        .map_err(|e| Error::Usage(format!("'{}' is not an f32 .npy array: {e}", path.display())))
-}
-
 fn npy2(path: &Path) -> Result<Array2<f32>> {
-    npy(path)?.into_dimensionality().map_err(|_| Error::Usage(format!("'{}' should be a 2-D array", path.display())))
+    read_npy(path)?
+        .into_dimensionality()
+        .map_err(|_| Error::Usage(format!("'{}' should be a 2-D array", path.display())))
 }
 
 /// Rows of a CSV file written by sufficit (header, then comma-separated fields, no quoting).
@@ -424,7 +419,7 @@ pub fn reduction_section(id: &str, r: &Folder, stim: Option<&Stimulus>) -> Resul
         let file = |k: &str| u["files"][k].as_str().map(|f| r.file(f));
         let (Some(sp), Some(tm)) = (file("spatial"), file("temporal")) else { continue };
         let spatial = npy2(&sp)?;
-        let temporal: Array1<f32> = npy(&tm)?
+        let temporal: Array1<f32> = read_npy(&tm)?
             .into_dimensionality()
             .map_err(|_| Error::Usage(format!("'{}' should be a 1-D array", tm.display())))?;
         let curve = match file("nonlinearity").filter(|p| p.exists()) {

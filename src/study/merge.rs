@@ -2,7 +2,7 @@
 //! is copied into one results folder, its record last; the same unit from two shards must carry
 //! the same settings hash.
 
-use super::run::DONE;
+use super::run::{settings_hash, DONE};
 use crate::output::OutputDir;
 use crate::{Error, Result};
 use std::path::{Path, PathBuf};
@@ -31,11 +31,6 @@ fn sealed(dir: &Path, root: &Path, out: &mut Vec<PathBuf>) -> Result<()> {
         sealed(&s, root, out)?;
     }
     Ok(())
-}
-
-fn hash_of(dir: &Path) -> Option<String> {
-    let text = std::fs::read_to_string(dir.join(DONE)).ok()?;
-    serde_json::from_str::<serde_json::Value>(&text).ok()?["settings_hash"].as_str().map(String::from)
 }
 
 /// Copy a sealed folder's files and sub-folders, except sub-folders that are sealed units of
@@ -80,7 +75,7 @@ pub fn merge(inputs: &[PathBuf], out: &Path) -> Result<Merged> {
         sealed(input, input, &mut units)?;
         for rel in units {
             let (from, to) = (input.join(&rel), out.join(&rel));
-            match (hash_of(&from), hash_of(&to)) {
+            match (settings_hash(&from), settings_hash(&to)) {
                 (Some(a), Some(b)) if a == b => merged.already += 1,
                 (Some(_), Some(_)) => {
                     return Err(Error::Usage(format!(

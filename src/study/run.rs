@@ -43,12 +43,15 @@ pub struct JobReport {
 /// program name.
 pub type Exec<'a> = &'a (dyn Fn(Vec<String>) -> Result<()> + Sync);
 
+/// The settings hash of the completion record in `dir`, if it holds a readable one.
+pub fn settings_hash(dir: &Path) -> Option<String> {
+    let text = std::fs::read_to_string(dir.join(DONE)).ok()?;
+    serde_json::from_str::<Value>(&text).ok()?["settings_hash"].as_str().map(String::from)
+}
+
 /// True when `dir` holds a completion record with this settings hash.
 pub fn finished(dir: &Path, hash: &str) -> bool {
-    std::fs::read_to_string(dir.join(DONE))
-        .ok()
-        .and_then(|t| serde_json::from_str::<Value>(&t).ok())
-        .is_some_and(|v| v["settings_hash"] == hash)
+    settings_hash(dir).is_some_and(|h| h == hash)
 }
 
 /// Seal a finished folder.
