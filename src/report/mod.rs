@@ -14,7 +14,7 @@ use doc::Block;
 use findings::Finding;
 use gather::{Folder, Gathered, Kind};
 use rayon::prelude::*;
-use sections::{protocol_of, stimulus_of};
+use sections::{meta_of, protocol_of};
 use std::path::PathBuf;
 
 /// The caution every report carries.
@@ -66,7 +66,7 @@ pub fn compose(g: &Gathered) -> Result<(Vec<Block>, Vec<Finding>)> {
         let mut cells: Vec<((usize, String), CellResults)> = Vec::new();
         for f in folders.iter().filter(|f| matches!(f.kind, Kind::Attribution | Kind::Reduction | Kind::Knockouts)) {
             let Some(cell) = f.cell() else { continue };
-            let protocol = protocol_of(f, stimulus_of(f, g).as_ref());
+            let protocol = protocol_of(f, g);
             let key = (cell, protocol);
             let i = match cells.iter().position(|(k, _)| *k == key) {
                 Some(i) => i,
@@ -125,7 +125,7 @@ pub fn compose(g: &Gathered) -> Result<(Vec<Block>, Vec<Finding>)> {
             let parts: Vec<Vec<Block>> = responses
                 .par_iter()
                 .map(|r| {
-                    let protocol = protocol_of(r, None);
+                    let protocol = protocol_of(r, g);
                     sections::protocol_section(&format!("{p}-protocol-{}", slug(&protocol)), r, g)
                 })
                 .collect::<Result<_>>()?;
@@ -159,13 +159,13 @@ fn cell_section(id: &str, cell: usize, protocol: &str, r: &CellResults, g: &Gath
     for (i, a) in r.attribution.iter().enumerate() {
         let frame_ms = a.doc["frame_rate_hz"]
             .as_f64()
-            .or_else(|| stimulus_of(a, g).map(|s| s.meta.frame_rate_hz))
+            .or_else(|| meta_of(a, g).map(|m| m.frame_rate_hz))
             .map_or(f64::NAN, |hz| 1000.0 / hz);
         out.extend(sections::attribution_section(&numbered(&format!("{id}-attribution"), i), a, frame_ms)?);
     }
     for (i, d) in r.reduction.iter().enumerate() {
-        let stim = stimulus_of(d, g);
-        out.extend(sections::reduction_section(&numbered(&format!("{id}-circuit"), i), d, stim.as_ref())?);
+        let meta = meta_of(d, g);
+        out.extend(sections::reduction_section(&numbered(&format!("{id}-circuit"), i), d, meta.as_ref())?);
     }
     let tables: Vec<(String, serde_json::Value)> = if r.knockouts.is_empty() {
         r.reduction

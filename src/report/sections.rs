@@ -10,11 +10,11 @@ use crate::figure::{png, svg, Figure};
 use crate::output::{read_json, read_npy};
 use crate::reduction::plot::{add_curve_point, FidelityCurve, ReducedResponse, UnitFigure};
 use crate::response::Responses;
-use crate::stimulus::{read_stimulus, Stimulus};
+use crate::stimulus::{read_meta, read_stimulus, Meta, Stimulus};
 use crate::{Error, Result};
 use ndarray::{Array1, Array2, Array3};
 use serde_json::Value;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 /// Widest heatmap drawn in the report (time bins); longer analyses are averaged into bins.
 const HEATMAP_BINS: usize = 300;
@@ -65,39 +65,40 @@ pub fn sig(v: f64) -> String {
     if v == 0.0 {
         return "0".into();
     }
-    if v != 0.0 && (v.abs() < 1e-3 || v.abs() >= 1e5) {
+    if v.abs() < 1e-3 || v.abs() >= 1e5 {
         return format!("{v:.3e}");
     }
     let digits = (3 - v.abs().max(1e-300).log10().floor() as i32).clamp(0, 6) as usize;
     format!("{v:.digits$}")
 }
 
-/// The stimulus a result folder was computed on, from the gathered stimulus folders or the path
-/// in its run.json. When the recorded folder has moved (results merged or copied), the gathered stimulus folder
-/// whose last three path components match it stands in.
-pub fn stimulus_of(folder: &Folder, g: &Gathered) -> Option<Stimulus> {
+/// The stimulus folder a result was computed on: the path in its run.json, or, when that folder
+/// has moved (results merged or copied), the gathered stimulus folder whose last three path
+/// components match it.
+fn stimulus_dir(folder: &Folder, g: &Gathered) -> Option<PathBuf> {
     let dir = folder.stimulus_dir()?;
     let tail = |p: &Path| p.components().rev().take(3).map(|c| c.as_os_str().to_owned()).collect::<Vec<_>>();
-    let dir = g
-        .stimuli
-        .get(&canonical(&dir))
-        .map(|f| f.dir.clone())
-        .filter(|d| d.exists())
-        .or_else(|| {
-            (!dir.exists())
-                .then(|| g.stimuli.values().find(|f| tail(&f.dir) == tail(&dir)).map(|f| f.dir.clone()))
-                .flatten()
-        })
-        .unwrap_or(dir);
-    read_stimulus(&dir).ok()
+    let found = g.stimuli.get(&canonical(&dir)).map(|f| f.dir.clone()).filter(|d| d.exists());
+    let moved = || (!dir.exists()).then(|| g.stimuli.values().find(|f| tail(&f.dir) == tail(&dir))).flatten();
+    Some(found.or_else(|| moved().map(|f| f.dir.clone())).unwrap_or(dir))
 }
 
-/// The protocol of a result folder (its JSON, or its stimulus).
-pub fn protocol_of(folder: &Folder, stim: Option<&Stimulus>) -> String {
+/// The stimulus (movie and description) a result folder was computed on.
+fn stimulus_of(folder: &Folder, g: &Gathered) -> Option<Stimulus> {
+    read_stimulus(&stimulus_dir(folder, g)?).ok()
+}
+
+/// Only the description of that stimulus (frame rate, pixel size, protocol): no movie read.
+pub fn meta_of(folder: &Folder, g: &Gathered) -> Option<Meta> {
+    read_meta(&stimulus_dir(folder, g)?).ok()
+}
+
+/// The protocol of a result folder: its JSON's, or (older results) its stimulus's.
+pub fn protocol_of(folder: &Folder, g: &Gathered) -> String {
     folder.doc["protocol"]
         .as_str()
         .map(String::from)
-        .or_else(|| stim.map(|s| s.meta.protocol.clone()))
+        .or_else(|| meta_of(folder, g).map(|m| m.protocol))
         .unwrap_or_else(|| "unknown protocol".into())
 }
 
@@ -105,12 +106,8 @@ pub fn protocol_of(folder: &Folder, stim: Option<&Stimulus>) -> String {
 /// first event (or over the protocol when it has no events).
 fn strip_frames(stim: &Stimulus) -> Vec<usize> {
     let m = &stim.meta;
-    let mut frames: Vec<usize> = Vec::new();
-    for e in &m.events {
-        if !m.events.iter().take_while(|x| !std::ptr::eq(*x, e)).any(|x| x.name == e.name) {
-            frames.push(e.frame);
-        }
-    }
+    let mut kinds = std::collections::HashSet::new();
+    let mut frames: Vec<usize> = m.events.iter().filter(|e| kinds.insert(e.name.as_str())).map(|e| e.frame).collect();
     let start = frames.iter().copied().min().unwrap_or(m.history_frames.min(m.frames.saturating_sub(1)));
     let free = 8usize.saturating_sub(frames.len()).max(1);
     let span = m.frames.saturating_sub(start).max(1);
@@ -124,7 +121,7 @@ fn strip_frames(stim: &Stimulus) -> Vec<usize> {
 /// Section for one `respond` folder: stimulus strip, responses with events, metrics per cell.
 pub fn protocol_section(id: &str, r: &Folder, g: &Gathered) -> Result<Vec<Block>> {
     let stim = stimulus_of(r, g);
-    let protocol = protocol_of(r, stim.as_ref());
+    let protocol = protocol_of(r, g);
     let mut out = vec![Block::Heading { level: 3, id: id.into(), text: format!("Protocol: {protocol}") }];
     let rates = npy2(&r.file("responses.npy"))?;
     match &stim {
@@ -350,7 +347,7 @@ pub fn attribution_section(id: &str, a: &Folder, frame_ms: f64) -> Result<Vec<Bl
 
 /// Reduction: circuit diagram, fidelity, kept units with their filters and nonlinearities,
 /// full vs reduced response, fidelity curve.
-pub fn reduction_section(id: &str, r: &Folder, stim: Option<&Stimulus>) -> Result<Vec<Block>> {
+pub fn reduction_section(id: &str, r: &Folder, meta: Option<&Meta>) -> Result<Vec<Block>> {
     let d = &r.doc;
     let mut out =
         vec![Block::Heading { level: 4, id: id.into(), text: "The smallest circuit that keeps the response".into() }];
@@ -413,7 +410,7 @@ pub fn reduction_section(id: &str, r: &Folder, stim: Option<&Stimulus>) -> Resul
             })
             .collect(),
     });
-    let (pixel_um, frame_ms) = stim.map_or((1.0, 1.0), |s| (s.meta.pixel_size_um, 1000.0 / s.meta.frame_rate_hz));
+    let (pixel_um, frame_ms) = meta.map_or((1.0, 1.0), |m| (m.pixel_size_um, 1000.0 / m.frame_rate_hz));
     for u in &units {
         let label = format!("{}:{}", num(&u["layer"]), num(&u["channel"]));
         let file = |k: &str| u["files"][k].as_str().map(|f| r.file(f));

@@ -11,7 +11,7 @@ mod store;
 
 pub use canvas::Canvas;
 pub use params::{Params, Spec};
-pub use store::{read_movie, read_stimulus, write_stimulus};
+pub use store::{read_meta, read_movie, read_stimulus, write_stimulus};
 
 use ndarray::Array3;
 use serde::{Deserialize, Serialize};

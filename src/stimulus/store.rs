@@ -15,13 +15,19 @@ pub fn write_stimulus(stim: &Stimulus, dir: &Path) -> Result<()> {
     Ok(())
 }
 
-/// Read a stimulus folder: the movie must be f32 `[frames, H, W]` and agree with stimulus.json.
-pub fn read_stimulus(dir: &Path) -> Result<Stimulus> {
+/// Read only a stimulus folder's description (stimulus.json), not its movie.
+pub fn read_meta(dir: &Path) -> Result<Meta> {
     let meta_path = dir.join("stimulus.json");
     let text =
         std::fs::read_to_string(&meta_path).map_err(|e| Error::io("read the stimulus description", &meta_path, e))?;
-    let meta: Meta = serde_json::from_str(&text)
-        .map_err(|e| Error::Usage(format!("'{}' is not a sufficit stimulus description: {e}", meta_path.display())))?;
+    serde_json::from_str(&text)
+        .map_err(|e| Error::Usage(format!("'{}' is not a sufficit stimulus description: {e}", meta_path.display())))
+}
+
+/// Read a stimulus folder: the movie must be f32 `[frames, H, W]` and agree with stimulus.json.
+pub fn read_stimulus(dir: &Path) -> Result<Stimulus> {
+    let meta_path = dir.join("stimulus.json");
+    let meta = read_meta(dir)?;
     let movie = read_movie(&dir.join("movie.npy"))?;
     if movie.shape() != [meta.frames, meta.height, meta.width] {
         return Err(Error::Usage(format!(
