@@ -107,8 +107,7 @@ impl Problems<'_> {
             if known.contains(&key) {
                 continue;
             }
-            let nearest = known.iter().min_by_key(|k| strsim::levenshtein(k, key)).copied();
-            let hint = match nearest {
+            let hint = match nearest(known, key) {
                 Some(n) if strsim::levenshtein(n, key) <= 3 => format!("; did you mean '{n}'?"),
                 _ => format!("; known keys here: {}", known.join(", ")),
             };
@@ -119,8 +118,19 @@ impl Problems<'_> {
     }
 }
 
-const TOP: [&str; 10] =
-    ["out", "models", "model", "cells", "layers", "seed", "frame_rate_hz", "pixel_um", "attribution", "reduction"];
+const TOP: [&str; 11] = [
+    "out",
+    "models",
+    "model",
+    "cells",
+    "layers",
+    "seed",
+    "frame_rate_hz",
+    "pixel_um",
+    "attribution",
+    "reduction",
+    "protocols",
+];
 const ATTRIBUTION: [&str; 3] = ["steps", "baseline", "compare_baselines"];
 const REDUCTION: [&str; 2] = ["fidelity", "metric"];
 
@@ -135,9 +145,7 @@ pub fn read(path: &Path) -> Result<(StudyFile, Vec<String>)> {
     let base = path.parent().unwrap_or(Path::new(".")).to_path_buf();
     let mut p = Problems { raw: &raw, file: path, list: Vec::new() };
     let root = doc.as_table();
-    let mut known: Vec<&str> = TOP.to_vec();
-    known.push("protocols");
-    p.unknown_keys(root, "", &known);
+    p.unknown_keys(root, "", &TOP);
 
     let line_of = |p: &Problems, key: &str| p.line(root.get(key).and_then(Item::span));
     let string = |p: &mut Problems, table: &Table, key: &str, prefix: &str, default: &str| -> String {
@@ -216,7 +224,7 @@ pub fn read(path: &Path) -> Result<(StudyFile, Vec<String>)> {
     let positive = |p: &mut Problems, key: &str, default: f64| -> f64 {
         match root.get(key) {
             None => default,
-            Some(item) => match item.as_float().or_else(|| item.as_integer().map(|i| i as f64)) {
+            Some(item) => match number(item) {
                 Some(v) if v > 0.0 && v.is_finite() => v,
                 _ => {
                     let line = p.line(item.span());
@@ -285,7 +293,7 @@ pub fn read(path: &Path) -> Result<(StudyFile, Vec<String>)> {
     p.unknown_keys(&red, "reduction.", &REDUCTION);
     let fidelity = match red.get("fidelity") {
         None => 0.9,
-        Some(item) => match item.as_float().or_else(|| item.as_integer().map(|i| i as f64)) {
+        Some(item) => match number(item) {
             Some(f) if f > 0.0 && f <= 1.0 => f,
             _ => {
                 let line = p.line(item.span());
@@ -319,6 +327,16 @@ pub fn read(path: &Path) -> Result<(StudyFile, Vec<String>)> {
         protocols,
     };
     Ok((study, p.list))
+}
+
+/// The known name closest to `name` (edit distance).
+fn nearest<'a>(known: &[&'a str], name: &str) -> Option<&'a str> {
+    known.iter().min_by_key(|k| strsim::levenshtein(k, name)).copied()
+}
+
+/// A TOML number, integer or float.
+fn number(item: &Item) -> Option<f64> {
+    item.as_float().or_else(|| item.as_integer().map(|i| i as f64))
 }
 
 /// One error holding every problem, one per line.
@@ -380,8 +398,7 @@ fn protocol_entries(p: &mut Problems, root: &Table) -> Vec<ProtocolEntry> {
             Err(e) => {
                 let line = p.line(t.get("name").and_then(Item::span));
                 let names: Vec<&str> = protocols::all().iter().map(|x| x.name()).collect();
-                let nearest = names.iter().min_by_key(|n| strsim::levenshtein(n, name)).copied().unwrap_or("");
-                p.add(line, &format!("{key}.name"), format!("{e}; nearest: '{nearest}'"));
+                p.add(line, &format!("{key}.name"), format!("{e}; nearest: '{}'", nearest(&names, name).unwrap_or("")));
                 continue;
             }
         };
@@ -404,7 +421,7 @@ fn protocol_entries(p: &mut Problems, root: &Table) -> Vec<ProtocolEntry> {
             let arg = format!("{k}={text}");
             if !specs.iter().any(|s| s.name == k) {
                 let names: Vec<&str> = specs.iter().map(|s| s.name).collect();
-                let nearest = names.iter().min_by_key(|n| strsim::levenshtein(n, k)).copied().unwrap_or("");
+                let nearest = nearest(&names, k).unwrap_or("");
                 p.add(
                     vline,
                     &format!("{key}.{k}"),

@@ -52,11 +52,15 @@ pub fn chunk_budget(max: u64, threads: usize) -> usize {
     (max / 2 / threads.max(1) as u64) as usize
 }
 
+/// Frames of model `i`'s longest stimulus movie.
+fn longest_movie(plan: &Plan, i: usize) -> usize {
+    plan.shared.iter().filter(|s| s.model == i).map(|s| s.frames).max().unwrap_or(0)
+}
+
 /// The least memory model `i` needs (see [`check`]).
 pub fn least_bytes(plan: &Plan, i: usize, threads: usize) -> u64 {
     let m = &plan.models[i];
-    let longest = plan.shared.iter().filter(|s| s.model == i).map(|s| s.frames).max().unwrap_or(0);
-    (TAPES_PER_THREAD * 2 * m.bytes_per_window * threads + 2 * longest * m.frame_bytes) as u64
+    (TAPES_PER_THREAD * 2 * m.bytes_per_window * threads + 2 * longest_movie(plan, i) * m.frame_bytes) as u64
 }
 
 /// The least memory each model needs: one window per chunk on every thread (three tapes at
@@ -65,14 +69,14 @@ pub fn least_bytes(plan: &Plan, i: usize, threads: usize) -> u64 {
 pub fn check(plan: &Plan, max: u64, threads: usize) -> Result<()> {
     for (i, m) in plan.models.iter().enumerate() {
         let need = least_bytes(plan, i, threads);
-        let longest = plan.shared.iter().filter(|s| s.model == i).map(|s| s.frames).max().unwrap_or(0);
         if need > max / 2 {
             return Err(Error::Usage(format!(
                 "model '{}' needs at least about {} MiB with {threads} threads ({:.1} MiB per window, movies \
-                 up to {longest} frames), more than half of --max-memory {} MiB: raise --max-memory or lower --threads",
+                 up to {} frames), more than half of --max-memory {} MiB: raise --max-memory or lower --threads",
                 m.path.display(),
                 need >> 20,
                 m.bytes_per_window as f64 / (1 << 20) as f64,
+                longest_movie(plan, i),
                 max >> 20
             )));
         }

@@ -115,31 +115,19 @@ fn run_job(plan: &Plan, j: usize, exec: Exec) -> Result<()> {
         v.extend(["--out".into(), s(&job.dir.join(command))]);
         v
     };
+    // attribute and reduce attribute the same layers with the same steps.
+    let layers_steps = ["--layer".to_string(), f.layers.clone(), "--steps".into(), f.steps.clone()];
     let mut att = base("attribute");
-    att.extend([
-        "--layer".into(),
-        f.layers.clone(),
-        "--steps".into(),
-        f.steps.clone(),
-        "--baseline".into(),
-        f.baseline.clone(),
-    ]);
+    att.extend(layers_steps.clone());
+    att.extend(["--baseline".into(), f.baseline.clone()]);
     if !f.compare_baselines.is_empty() {
         att.extend(["--compare-baselines".into(), f.compare_baselines.join(",")]);
     }
     exec(att)?;
     exec(base("knockout"))?;
     let mut red = base("reduce");
-    red.extend([
-        "--layer".into(),
-        f.layers.clone(),
-        "--steps".into(),
-        f.steps.clone(),
-        "--fidelity".into(),
-        f.fidelity.to_string(),
-        "--metric".into(),
-        f.metric.clone(),
-    ]);
+    red.extend(layers_steps);
+    red.extend(["--fidelity".into(), f.fidelity.to_string(), "--metric".into(), f.metric.clone()]);
     // reduce ranks units by the gray-baseline attribution: reuse the one just computed.
     if f.baseline == "gray" {
         red.extend(["--attribution".into(), s(&job.dir.join("attribute"))]);
