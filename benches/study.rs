@@ -23,6 +23,6 @@ fn main() {
          (default --max-memory {:.0} MiB)",
         cpu / wall,
         peak_mib(),
-        sufficit::study::memory::default_bytes() as f64 / (1 << 20) as f64
+        sufficit::memory::default_bytes() as f64 / (1 << 20) as f64
     );
 }

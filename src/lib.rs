@@ -11,6 +11,8 @@ pub mod demo;
 pub mod engine;
 pub mod error;
 pub mod figure;
+pub mod interrupt;
+pub mod memory;
 pub mod model;
 pub mod output;
 pub mod palette;

@@ -77,14 +77,61 @@ impl OutputDir {
 pub fn read_json(path: &Path) -> Result<serde_json::Value> {
     let text = std::fs::read_to_string(path).map_err(|e| Error::io("read", path, e))?;
     serde_json::from_str(&text)
-        .map_err(|e| Error::Usage(format!("'{}' is not valid JSON ({e}); was it written completely?", path.display())))
+        .map_err(|e| Error::input(path, format!("is not valid JSON ({e}); was it written completely?")))
 }
 
 /// Read an f32 `.npy` array of any rank, naming the file when it is missing or of another type.
+/// The header is checked against the file's real size before any array is allocated, so a file
+/// declaring a huge shape (or header) is refused at once instead of exhausting memory.
 pub fn read_npy(path: &Path) -> Result<crate::Tensor> {
+    let size = std::fs::metadata(path).map_err(|e| Error::io("read", path, e))?.len();
+    crate::memory::check(&format!("reading '{}'", path.display()), Some(size), 0.5)?;
+    let bytes = std::fs::read(path).map_err(|e| Error::io("read", path, e))?;
+    parse_npy(&bytes, path)
+}
+
+/// As [`read_npy`], from the file's bytes (`path` names it in messages).
+pub fn parse_npy(bytes: &[u8], path: &Path) -> Result<crate::Tensor> {
     use ndarray_npy::ReadNpyExt;
-    let f = std::fs::File::open(path).map_err(|e| Error::io("read", path, e))?;
-    crate::Tensor::read_npy(f).map_err(|e| Error::Usage(format!("'{}' is not an f32 .npy array: {e}", path.display())))
+    let expected = "expected a float32 .npy array (numpy: np.save(path, a.astype(np.float32)))";
+    let header_end = npy_header_end(bytes).ok_or_else(|| {
+        Error::input(
+            path,
+            format!("is not a .npy file, or its header is cut short or longer than the file; {expected}"),
+        )
+    })?;
+    let header = ndarray_npy::npy::header::Header::from_reader(&mut &bytes[..header_end])
+        .map_err(|e| Error::input(path, format!("has an unreadable .npy header ({e}); {expected}")))?;
+    let declared = header.shape.iter().try_fold(4usize, |n, &d| n.checked_mul(d));
+    let data = bytes.len() - header_end;
+    if declared != Some(data) {
+        return Err(Error::input(
+            path,
+            format!(
+                "declares shape {:?} ({} bytes of float32) but holds {data} bytes of data; {expected}",
+                header.shape,
+                declared.map_or("too many".to_string(), |d| d.to_string())
+            ),
+        ));
+    }
+    crate::Tensor::read_npy(bytes).map_err(|e| Error::input(path, format!("is not an f32 .npy array: {e}")))
+}
+
+/// Where a `.npy` file's header ends (magic, version, header length field, header), or `None`
+/// when the bytes are not a `.npy` file or the declared header runs past their end.
+fn npy_header_end(bytes: &[u8]) -> Option<usize> {
+    // The .npy format: "\x93NUMPY", major and minor version, then the header length as a
+    // little-endian u16 (version 1) or u32 (versions 2 and 3). numpy.lib.format documentation.
+    if bytes.len() < 10 || &bytes[..6] != b"\x93NUMPY" {
+        return None;
+    }
+    let (len, start) = match bytes[6] {
+        1 => (u16::from_le_bytes([bytes[8], bytes[9]]) as usize, 10usize),
+        2 | 3 if bytes.len() >= 12 => (u32::from_le_bytes([bytes[8], bytes[9], bytes[10], bytes[11]]) as usize, 12),
+        _ => return None,
+    };
+    let end = start.checked_add(len)?;
+    (end <= bytes.len()).then_some(end)
 }
 
 /// SHA-256 of a file, hex encoded.

@@ -175,6 +175,7 @@ pub fn integrate(job: &PathJob, ends: &Endpoints, baseline: usize) -> Result<Pat
     let partials: Vec<Partial> = items
         .par_iter()
         .map(|(k, range)| -> Result<Partial> {
+            crate::interrupt::check()?;
             let (alpha, weight) = points[*k];
             let m = range.len();
             let z_mid = along(z0, dz, &[alpha], range.clone());

@@ -73,9 +73,9 @@ pub fn read_back(dir: &Path, model: &Model, stimulus: &Path, request: &Request, 
             return Err(differs(what, a, b));
         }
     }
-    let time = read_npy(&dir.join("conductance_time.npy"))?.into_dimensionality::<ndarray::Ix2>().map_err(|_| {
-        Error::Usage(format!("'{}' should be [units, frames]", dir.join("conductance_time.npy").display()))
-    })?;
+    let time = read_npy(&dir.join("conductance_time.npy"))?
+        .into_dimensionality::<ndarray::Ix2>()
+        .map_err(|_| Error::input(dir.join("conductance_time.npy"), "should be [units, frames]"))?;
     let units = doc["units"].as_array().cloned().unwrap_or_default();
     let mut row = 0;
     let mut out = Vec::new();
@@ -92,11 +92,13 @@ pub fn read_back(dir: &Path, model: &Model, stimulus: &Path, request: &Request, 
             }
         }
         if total.iter().chain(&gradient).any(|v| !v.is_finite()) || row + channels > time.nrows() {
-            return Err(Error::Usage(format!(
-                "'{}' lacks the conductance or path gradient of some unit of '{name}' (written by an older sufficit?); \
-                 rerun attribute",
-                dir.display()
-            )));
+            return Err(Error::input(
+                dir.join("attribution.json"),
+                format!(
+                    "lacks the conductance or path gradient of some unit of '{name}' (written by an older \
+                     sufficit?); rerun attribute"
+                ),
+            ));
         }
         let space_file = if layers.len() == 1 {
             "conductance_space.npy".to_string()

@@ -31,6 +31,9 @@ pub struct DemoModelsArgs {
     /// Adam step size.
     #[arg(long, default_value_t = FitSettings::default().lr)]
     pub lr: f32,
+    /// The objective.
+    #[arg(long, value_enum, default_value_t = FitSettings::default().loss)]
+    pub loss: crate::demo::train::Loss,
 }
 
 /// Write the models.
@@ -43,12 +46,13 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             train_frames: a.train_frames,
             epochs: a.epochs,
             lr: a.lr,
+            loss: a.loss,
             ..Default::default()
         };
         let (model, report) = fit(&settings, &|e| {
             eprintln!(
-                "epoch {}: training loss {:.4}, per cell {:.3?}, held-out r {:.3?}",
-                e.number, e.loss, e.cell_loss, e.heldout_correlation
+                "epoch {}: training loss {:.4}, per cell {:.3?}, held-out r {:.3?} (noise, flicker, scenes: {:.2?})",
+                e.number, e.loss, e.cell_loss, e.heldout_correlation, e.heldout_by_kind
             )
         })?;
         let out = OutputDir::create(&a.out)?;

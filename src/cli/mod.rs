@@ -70,6 +70,10 @@ pub struct Common {
     /// Random seed (noise stimuli, probes); recorded in run.json.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
+    /// Memory bound, e.g. 8G (default: half of this machine's memory). Work that would exceed
+    /// it is refused before it starts; when given, it also sets the batch sizes.
+    #[arg(long, value_name = "SIZE")]
+    pub max_memory: Option<String>,
 }
 
 impl Common {
@@ -79,6 +83,9 @@ impl Common {
                 .num_threads(n.max(1))
                 .build_global()
                 .map_err(|e| Error::Usage(format!("--threads {n}: {e}")))?;
+        }
+        if let Some(m) = &self.max_memory {
+            crate::memory::set_limit(crate::memory::parse_size(m)?, rayon::current_num_threads());
         }
         Ok(())
     }

@@ -77,7 +77,12 @@ pub fn run_study(a: &StudyArgs) -> Result<()> {
             .build_global()
             .map_err(|e| Error::Usage(format!("--threads {n}: {e}")))?;
     }
-    let max = a.max_memory.as_deref().map(memory::parse_size).transpose()?.unwrap_or_else(memory::default_bytes);
+    let max = a
+        .max_memory
+        .as_deref()
+        .map(crate::memory::parse_size)
+        .transpose()?
+        .unwrap_or_else(crate::memory::default_bytes);
     let shard = a.shard.as_deref().map(plan::parse_shard).transpose()?;
     let (mut study, problems) = file::read(&a.file)?;
     if let Some(out) = &a.out {
@@ -85,7 +90,9 @@ pub fn run_study(a: &StudyArgs) -> Result<()> {
     }
     let plan = plan::plan(study, problems)?;
     memory::check(&plan, max, threads)?;
-    crate::engine::batch::set_budget_bytes(memory::chunk_budget(max, threads));
+    // Set after planning, whose model checks use the machine's default bound: a too-small
+    // --max-memory is then refused with the study's own estimate.
+    crate::memory::set_limit(max, threads);
     let mine = plan.shard(shard);
     if a.check {
         let per_window = window_seconds(&plan)?;

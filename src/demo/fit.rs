@@ -2,9 +2,9 @@
 //! trained with the engine's gradients and Adam on the planted sensor's responses to white noise
 //! and naturalistic movies, and judged on held-out movies. Reproducible from its seed.
 
-use super::movies::{binary_noise, naturalistic};
+use super::movies::{binary_noise, full_field_flicker, naturalistic};
 use super::planted::{synthetic_sensor, LAGS, SIZE};
-use super::train::{batch_gradients, Adam};
+use super::train::{batch_gradients, Adam, Loss};
 use crate::model::builder::{int_attr, OnnxBuilder};
 use crate::model::{LoadOptions, Model};
 use crate::response::measure::correlation;
@@ -24,7 +24,8 @@ use std::time::Instant;
 pub struct FitSettings {
     /// Seed of movies, initial weights and batch order.
     pub seed: u64,
-    /// Frames of each training movie kind (binary noise; naturalistic).
+    /// Frames of each training movie kind (binary noise; full-field flicker; naturalistic),
+    /// fresh every epoch.
     pub train_frames: usize,
     /// Frames of each held-out movie kind.
     pub heldout_frames: usize,
@@ -38,19 +39,22 @@ pub struct FitSettings {
     pub channels: (usize, usize),
     /// Kernel sizes of the two convolutions (pixels).
     pub kernels: (usize, usize),
+    /// The objective.
+    pub loss: Loss,
 }
 
 impl Default for FitSettings {
     fn default() -> Self {
         FitSettings {
             seed: 1,
-            train_frames: 6000,
+            train_frames: 2000,
             heldout_frames: 1000,
-            epochs: 8,
+            epochs: 20,
             batch: 32,
-            lr: 2e-3,
+            lr: 3e-3,
             channels: (8, 8),
             kernels: (15, 15),
+            loss: Loss::Poisson,
         }
     }
 }
@@ -60,9 +64,9 @@ impl Default for FitSettings {
 pub struct FitReport {
     /// Pearson correlation of fitted and planted rates on the held-out movies, per cell.
     pub heldout_correlation: Vec<f64>,
-    /// Mean training loss of each epoch (1 = predicting each cell's mean).
+    /// Mean training loss of each epoch (for the weighted MSE, 1 = predicting each cell's mean).
     pub epoch_loss: Vec<f64>,
-    /// The same per cell (weighted MSE: 1 - roughly the fraction of variance explained).
+    /// The same per cell.
     pub epoch_cell_loss: Vec<Vec<f64>>,
     /// Wall time of the fit, seconds.
     pub seconds: f64,
@@ -194,10 +198,14 @@ fn planted() -> Result<Model> {
     Model::from_proto(synthetic_sensor(), Path::new("synthetic-sensor-planted.onnx"), &LoadOptions::default())
 }
 
-/// Movies and the planted sensor's rates on them: binary noise (100 um checkers) and
-/// naturalistic movies, `frames` each, seeded.
+/// Movies and the planted sensor's rates on them, `frames` each, seeded: binary noise (100 um
+/// checkers), full-field flicker (holds of 10 to 50 ms) and a naturalistic movie.
 fn dataset(planted: &Model, frames: usize, seed: u64) -> Result<Vec<(Array3<f32>, Array2<f32>)>> {
-    let movies = [binary_noise(frames, SIZE, SIZE, 2, 1.0, seed), naturalistic(frames, SIZE, SIZE, seed + 1)];
+    let movies = [
+        binary_noise(frames, SIZE, SIZE, 2, 1.0, seed),
+        full_field_flicker(frames, SIZE, SIZE, 0.35, 5, seed + 1),
+        naturalistic(frames, SIZE, SIZE, seed + 2),
+    ];
     movies
         .into_iter()
         .map(|m| {
@@ -207,35 +215,44 @@ fn dataset(planted: &Model, frames: usize, seed: u64) -> Result<Vec<(Array3<f32>
         .collect()
 }
 
-/// Each cell's squared errors are weighted by 1 / its variance on a large calibration sample
-/// (fixed for the whole fit, so a bursty cell's weight does not swing with each epoch's movies).
-fn cell_weights(data: &[(Array3<f32>, Array2<f32>)]) -> Vec<f32> {
+/// Each cell's loss weight from a large calibration sample (fixed for the whole fit, so a bursty
+/// cell's weight does not swing with each epoch's movies): 1 / its variance for squared error,
+/// 1 / its mean rate for the Poisson deviance (which grows with the rate). Either way every cell
+/// counts about equally, whatever its firing rate.
+fn cell_weights(loss: Loss, data: &[(Array3<f32>, Array2<f32>)]) -> Vec<f32> {
     (0..CELLS)
         .map(|c| {
             let v: Vec<f64> =
                 data.iter().flat_map(|(_, r)| r.column(c).iter().map(|&x| x as f64).collect::<Vec<_>>()).collect();
             let m = v.iter().sum::<f64>() / v.len().max(1) as f64;
             let var = v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / v.len().max(1) as f64;
-            (1.0 / var.max(1e-6)) as f32
+            let scale = match loss {
+                Loss::WeightedMse => var,
+                Loss::Poisson => m,
+            };
+            (1.0 / scale.max(1e-6)) as f32
         })
         .collect()
 }
 
-/// Pearson correlation of the student's and the teacher's rates on `data`, per cell.
-fn correlations(student: &Model, data: &[(Array3<f32>, Array2<f32>)]) -> Result<Vec<f64>> {
-    let mut out = vec![0.0; CELLS];
+/// Pearson correlation of the student's and the teacher's rates on `data`, per cell: pooled over
+/// all movies, and for each movie alone (`[movie][cell]`).
+fn correlations(student: &Model, data: &[(Array3<f32>, Array2<f32>)]) -> Result<(Vec<f64>, Vec<Vec<f64>>)> {
     let fitted: Vec<Array2<f32>> = data.iter().map(|(m, _)| rates(student, m, &|_| {})).collect::<Result<_>>()?;
-    for (cell, r) in out.iter_mut().enumerate() {
+    let pairs = |movies: &[usize], cell: usize| {
         let (mut a, mut b) = (Vec::new(), Vec::new());
-        for ((m, y), f) in data.iter().zip(&fitted) {
-            for t in LAGS - 1..m.shape()[0] {
-                a.push(f[[t, cell]] as f64);
-                b.push(y[[t, cell]] as f64);
+        for &i in movies {
+            for t in LAGS - 1..data[i].0.shape()[0] {
+                a.push(fitted[i][[t, cell]] as f64);
+                b.push(data[i].1[[t, cell]] as f64);
             }
         }
-        *r = correlation(&a, &b);
-    }
-    Ok(out)
+        correlation(&a, &b)
+    };
+    let all: Vec<usize> = (0..data.len()).collect();
+    let pooled = (0..CELLS).map(|c| pairs(&all, c)).collect();
+    let each = (0..data.len()).map(|i| (0..CELLS).map(|c| pairs(&[i], c)).collect()).collect();
+    Ok((pooled, each))
 }
 
 /// One batch's loss (overall, per cell) and full-parameter gradients, the batch split in two
@@ -245,7 +262,7 @@ fn split_gradients(
     ids: &[crate::engine::ValueId],
     data: &[(Array3<f32>, Array2<f32>)],
     batch: &[(usize, usize)],
-    weights: &[f32],
+    (loss, weights): (Loss, &[f32]),
 ) -> Result<(f64, Vec<f64>, Vec<Tensor>)> {
     let halves: Vec<&[(usize, usize)]> = batch.chunks(batch.len().div_ceil(2).max(1)).collect();
     let parts: Vec<(f64, Vec<f64>, Vec<Tensor>)> = halves
@@ -258,7 +275,7 @@ fn split_gradients(
             let y = concatenate(Axis(0), &ys.iter().map(|y| y.view()).collect::<Vec<_>>())
                 .map_err(|e| crate::Error::Usage(e.to_string()))?;
             let (loss, cells, grads) =
-                batch_gradients(&student.graph, ids, (student.binding.to_model_input(x), &y), weights)?;
+                batch_gradients(&student.graph, ids, (student.binding.to_model_input(x), &y), loss, weights)?;
             let share = half.len() as f64 / batch.len() as f64;
             Ok((
                 loss * share,
@@ -285,6 +302,8 @@ pub struct Epoch {
     pub cell_loss: Vec<f64>,
     /// Held-out correlation per cell after the epoch.
     pub heldout_correlation: Vec<f64>,
+    /// The same for each held-out movie kind alone (binary noise, flicker, naturalistic).
+    pub heldout_by_kind: Vec<Vec<f64>>,
 }
 
 /// Fit the CNN; `progress` is called after each epoch.
@@ -295,7 +314,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     let teacher = planted()?;
     let mut rng = ChaCha8Rng::seed_from_u64(s.seed);
     let heldout = dataset(&teacher, s.heldout_frames, s.seed.wrapping_mul(1000) + 500)?;
-    let weights = cell_weights(&dataset(&teacher, s.train_frames.max(4000), s.seed.wrapping_mul(1000) + 700)?);
+    let weights = cell_weights(s.loss, &dataset(&teacher, s.train_frames.max(4000), s.seed.wrapping_mul(1000) + 700)?);
     let mut student = Student::init(s, &mut rng);
     let mut model = Model::from_proto(student.training_proto(), Path::new("fitted.onnx"), &LoadOptions::default())?;
     let ids: Vec<_> = TRAINED
@@ -306,13 +325,14 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     let mut adam = Adam::new(&shapes, s.lr);
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
     for epoch in 0..s.epochs {
-        let train = dataset(&teacher, s.train_frames, s.seed.wrapping_mul(1000) + 10 + 2 * epoch as u64)?;
+        let train = dataset(&teacher, s.train_frames, s.seed.wrapping_mul(1000) + 10 + 3 * epoch as u64)?;
         let mut windows: Vec<(usize, usize)> =
             train.iter().enumerate().flat_map(|(i, (m, _))| (LAGS - 1..m.shape()[0]).map(move |t| (i, t))).collect();
         windows.shuffle(&mut rng);
         let (mut total, mut cells, mut steps) = (0.0, [0.0; CELLS], 0);
         for batch in windows.chunks(s.batch) {
-            let (loss, per_cell, full) = split_gradients(&model, &ids, &train, batch, &weights)?;
+            crate::interrupt::check()?;
+            let (loss, per_cell, full) = split_gradients(&model, &ids, &train, batch, (s.loss, &weights))?;
             let grads = student.chain(full);
             {
                 let mut refs: Vec<&mut Tensor> = student.factors.iter_mut().collect();
@@ -331,12 +351,14 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         }
         let loss = total / steps.max(1) as f64;
         let cells: Vec<f64> = cells.iter().map(|c| c / steps.max(1) as f64).collect();
-        heldout_correlation = correlations(&model, &heldout)?;
+        let (pooled, by_kind) = correlations(&model, &heldout)?;
+        heldout_correlation = pooled;
         progress(&Epoch {
             number: epoch + 1,
             loss,
             cell_loss: cells.clone(),
             heldout_correlation: heldout_correlation.clone(),
+            heldout_by_kind: by_kind,
         });
         epoch_loss.push(loss);
         epoch_cell_loss.push(cells);

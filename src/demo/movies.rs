@@ -1,4 +1,5 @@
-//! Training movies for the fitted demo model: binary white noise, and procedurally generated
+//! Training movies for the fitted demo model: binary white noise, full-field flicker, and
+//! procedurally generated
 //! naturalistic movies: a large image with a 1/f amplitude spectrum (the statistics of natural
 //! scenes: Field, J. Opt. Soc. Am. A 1987) viewed through the frame as it drifts with a
 //! temporally correlated velocity (an Ornstein-Uhlenbeck process) interrupted by occasional
@@ -126,6 +127,33 @@ pub fn binary_noise(
     movie
 }
 
+/// Spatially uniform (full-field) flicker `[frames, height, width]`: Gaussian intensities of s.d.
+/// `contrast` (clipped to -1..1), each held for 1 to `max_hold` frames (uniform). Drives the
+/// wide-field temporal pathways that fine noise and drifting scenes hardly reach (full-field
+/// flicker is the classic stimulus for temporal filters, common practice).
+pub fn full_field_flicker(
+    frames: usize,
+    height: usize,
+    width: usize,
+    contrast: f32,
+    max_hold: usize,
+    seed: u64,
+) -> Array3<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut movie = Array3::zeros((frames, height, width));
+    let mut t = 0;
+    while t < frames {
+        let z: f32 = StandardNormal.sample(&mut rng);
+        let hold = rng.random_range(1..=max_hold.max(1));
+        let value = (z * contrast).clamp(-1.0, 1.0);
+        for f in t..(t + hold).min(frames) {
+            movie.index_axis_mut(ndarray::Axis(0), f).fill(value);
+        }
+        t += hold;
+    }
+    movie
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -177,5 +205,30 @@ mod tests {
         let near: f32 = (0..150).map(|t| corr(t, t + 1)).sum::<f32>() / 150.0;
         let far: f32 = (0..50).map(|t| corr(t, t + 100)).sum::<f32>() / 50.0;
         assert!(near > 0.8 && far < near - 0.3, "lag-1 {near}, lag-100 {far}");
+    }
+
+    #[test]
+    fn full_field_flicker_is_uniform_in_space_and_holds_its_values() {
+        let m = full_field_flicker(500, 6, 7, 0.35, 4, 2);
+        for f in m.outer_iter() {
+            let v = f[[0, 0]];
+            assert!(f.iter().all(|&x| x == v) && (-1.0..=1.0).contains(&v));
+        }
+        // Runs of equal frames are 1..=4 long (a new draw could repeat a value only by chance).
+        let (mut run, mut longest, mut changes) = (1, 1, 0);
+        for t in 1..500 {
+            if m[[t, 0, 0]] == m[[t - 1, 0, 0]] {
+                run += 1;
+            } else {
+                changes += 1;
+                run = 1;
+            }
+            longest = longest.max(run);
+        }
+        assert!(longest <= 4, "longest hold {longest}");
+        // Mean hold 2.5 frames: about 200 changes in 500 frames.
+        assert!((150..=250).contains(&changes), "{changes} changes");
+        let sd = (m.iter().map(|v| v * v).sum::<f32>() / m.len() as f32).sqrt();
+        assert!((sd - 0.35).abs() < 0.06, "s.d. {sd}");
     }
 }

@@ -1,5 +1,5 @@
-//! Fitting an encoding model with the engine's own gradients: mean squared error between the
-//! model's rates and target rates, gradients with respect to every parameter by reverse mode,
+//! Fitting an encoding model with the engine's own gradients: a loss between the model's rates
+//! and target rates (weighted squared error or Poisson deviance), gradients with respect to every parameter by reverse mode,
 //! and Adam updates (Kingma & Ba, ICLR 2015: the update rule and default constants below).
 
 use crate::engine::{Graph, ValueId};
@@ -71,6 +71,17 @@ pub fn mse(out: &Tensor, target: &Array2<f32>) -> Result<(f64, Tensor)> {
 /// As [`mse`], each cell's squared errors weighted (e.g. by 1 / its variance, so cells with large
 /// rates do not dominate the fit).
 pub fn weighted_mse(out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Result<(f64, Tensor)> {
+    weighted_mean(out, target, weights, |o, y| ((o - y).powi(2), 2.0 * (o - y)))
+}
+
+/// Mean over entries of `weight(cell) * term(out, target).0` and its gradient with respect to
+/// `out` (`term` gives an entry's loss and its derivative in `out`).
+fn weighted_mean(
+    out: &Tensor,
+    target: &Array2<f32>,
+    weights: &[f32],
+    term: impl Fn(f64, f64) -> (f64, f64),
+) -> Result<(f64, Tensor)> {
     if out.len() != target.len() {
         return Err(Error::Usage(format!(
             "training targets hold {} values but the model gives {}",
@@ -83,38 +94,85 @@ pub fn weighted_mse(out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Resu
     let mut loss = 0.0;
     let cells = target.ncols().max(1);
     for (i, ((g, &o), &y)) in grad.iter_mut().zip(out.iter()).zip(target.iter()).enumerate() {
-        let (d, w) = ((o - y) as f64, weights.get(i % cells).copied().unwrap_or(1.0) as f64);
-        loss += w * d * d;
-        *g = (2.0 * w * d / n) as f32;
+        let w = weights.get(i % cells).copied().unwrap_or(1.0) as f64;
+        let (l, d) = term(o as f64, y as f64);
+        loss += w * l;
+        *g = (w * d / n) as f32;
     }
     Ok((loss / n, grad))
 }
 
-/// Each cell's weighted mean squared error (mean over the batch).
-pub fn per_cell_loss(out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Vec<f64> {
-    let cells = target.ncols().max(1);
-    let mut sums = vec![0.0; cells];
-    for (i, (&o, &y)) in out.iter().zip(target.iter()).enumerate() {
-        let w = weights.get(i % cells).copied().unwrap_or(1.0) as f64;
-        sums[i % cells] += w * ((o - y) as f64).powi(2);
-    }
-    let n = (target.nrows().max(1)) as f64;
-    sums.iter().map(|s| s / n).collect()
+/// The fit's objective: how far a model's rates are from the target rates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, clap::ValueEnum)]
+#[serde(rename_all = "kebab-case")]
+pub enum Loss {
+    /// Squared error, each cell weighted (e.g. by 1 / its variance).
+    WeightedMse,
+    /// Poisson deviance (half of it: negative log-likelihood minus the saturated model's), the
+    /// loss of firing-rate encoding models (common practice). Far less dominated by rare bursts
+    /// than squared error. Each cell's deviance is weighted (e.g. by 1 / its mean rate, since the
+    /// deviance grows with the rate).
+    Poisson,
 }
 
-/// A batch's weighted MSE (overall and per cell) and its gradients with respect to `params`:
-/// forward `x`, compare with `target` (per-cell `weights`), reverse mode. Nothing is updated.
+impl Loss {
+    /// The loss (mean over all entries) and its gradient with respect to `out`.
+    pub fn value_and_gradient(self, out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Result<(f64, Tensor)> {
+        match self {
+            Loss::WeightedMse => weighted_mse(out, target, weights),
+            Loss::Poisson => poisson_deviance(out, target, weights),
+        }
+    }
+
+    /// Each cell's loss, mean over the batch.
+    pub fn per_cell(self, out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Vec<f64> {
+        let cells = target.ncols().max(1);
+        let mut sums = vec![0.0; cells];
+        for (i, (&o, &y)) in out.iter().zip(target.iter()).enumerate() {
+            let w = weights.get(i % cells).copied().unwrap_or(1.0) as f64;
+            sums[i % cells] += w * match self {
+                Loss::WeightedMse => ((o - y) as f64).powi(2),
+                Loss::Poisson => poisson_term(o as f64, y as f64).0,
+            };
+        }
+        let n = (target.nrows().max(1)) as f64;
+        sums.iter().map(|s| s / n).collect()
+    }
+}
+
+/// Rates at or below zero are clamped to this before the logarithm.
+const RATE_FLOOR: f64 = 1e-6;
+
+/// One entry's half Poisson deviance `o - y ln o - (y - y ln y)` and its derivative in `o`.
+fn poisson_term(o: f64, y: f64) -> (f64, f64) {
+    let o = o.max(RATE_FLOOR);
+    let y = y.max(0.0);
+    let saturated = if y > 0.0 { y - y * y.ln() } else { 0.0 };
+    (o - y * o.ln() - saturated, 1.0 - y / o)
+}
+
+/// Half the Poisson deviance of rates `out` for target rates `target` `[N, cells]`, each cell's
+/// terms weighted by `weights` (missing weights are 1), mean over entries, and its gradient.
+/// Zero exactly when `out == target`.
+pub fn poisson_deviance(out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Result<(f64, Tensor)> {
+    weighted_mean(out, target, weights, poisson_term)
+}
+
+/// A batch's loss (overall and per cell) and its gradients with respect to `params`:
+/// forward `x`, compare with `target` (per-cell `weights` for the weighted MSE), reverse mode.
+/// Nothing is updated.
 pub fn batch_gradients(
     graph: &Graph,
     params: &[ValueId],
     (x, target): (Tensor, &Array2<f32>),
+    loss: Loss,
     weights: &[f32],
 ) -> Result<(f64, Vec<f64>, Vec<Tensor>)> {
     let out = graph.outputs[0];
     let tape = graph.forward(x, &[])?;
-    let (loss, seed) = weighted_mse(tape.value(out), target, weights)?;
-    let cells = per_cell_loss(tape.value(out), target, weights);
-    Ok((loss, cells, tape.gradients(&[(out, seed)], params)?))
+    let (value, seed) = loss.value_and_gradient(tape.value(out), target, weights)?;
+    let cells = loss.per_cell(tape.value(out), target, weights);
+    Ok((value, cells, tape.gradients(&[(out, seed)], params)?))
 }
 
 /// One Adam step on a batch (see [`batch_gradients`]). Returns the batch loss before the
@@ -126,7 +184,7 @@ pub fn train_step(
     batch: (Tensor, &Array2<f32>),
     weights: &[f32],
 ) -> Result<(f64, Vec<f64>)> {
-    let (loss, cells, grads) = batch_gradients(graph, params, batch, weights)?;
+    let (loss, cells, grads) = batch_gradients(graph, params, batch, Loss::WeightedMse, weights)?;
     let mut tensors: Vec<Tensor> = params
         .iter()
         .map(|&p| graph.param_mut(p).map(std::mem::take))
@@ -167,5 +225,38 @@ mod tests {
         let (loss, g) = mse(&out, &y).unwrap();
         assert!((loss - (0.0 + 1.0 + 4.0 + 9.0) / 4.0).abs() < 1e-12);
         assert_eq!(g.iter().copied().collect::<Vec<_>>(), vec![0.0, 0.5, 1.0, 1.5]);
+    }
+
+    #[test]
+    fn poisson_deviance_gradient_matches_finite_differences() {
+        // Central differences of the loss itself (f64), at rates away from the floor.
+        let out = Tensor::from_shape_vec(IxDyn(&[3, 2]), vec![0.5, 2.0, 3.0, 0.1, 1.2, 4.0]).unwrap();
+        let y = Array2::from_shape_vec((3, 2), vec![1.0, 0.0, 2.5, 0.3, 1.2, 7.0]).unwrap();
+        let w = [0.5, 2.0];
+        let (_, g) = poisson_deviance(&out, &y, &w).unwrap();
+        let h = 1e-3f32;
+        for i in 0..out.len() {
+            let mut plus = out.clone();
+            let mut minus = out.clone();
+            plus.as_slice_mut().unwrap()[i] += h;
+            minus.as_slice_mut().unwrap()[i] -= h;
+            let fd = (poisson_deviance(&plus, &y, &w).unwrap().0 - poisson_deviance(&minus, &y, &w).unwrap().0)
+                / (2.0 * h as f64);
+            let an = g.as_slice().unwrap()[i] as f64;
+            assert!((fd - an).abs() < 1e-4 * (1.0 + an.abs()), "entry {i}: fd {fd} analytic {an}");
+        }
+    }
+
+    #[test]
+    fn poisson_deviance_is_zero_only_at_the_target() {
+        // The deviance of a saturated model is zero and positive elsewhere (McCullagh & Nelder,
+        // Generalized Linear Models, 1989, ch. 2, from memory).
+        let y = Array2::from_shape_vec((2, 2), vec![0.0, 1.0, 2.0, 5.0]).unwrap();
+        let exact = Tensor::from_shape_vec(IxDyn(&[2, 2]), vec![0.0, 1.0, 2.0, 5.0]).unwrap();
+        assert!(poisson_deviance(&exact, &y, &[]).unwrap().0.abs() < 1e-5);
+        let off = exact.mapv(|v| v + 0.5);
+        assert!(poisson_deviance(&off, &y, &[]).unwrap().0 > 0.05);
+        let per_cell = Loss::Poisson.per_cell(&off, &y, &[]);
+        assert!(per_cell.iter().all(|&c| c > 0.0), "{per_cell:?}");
     }
 }

@@ -35,6 +35,7 @@ pub fn map_chunks<T: Send>(input: &Tensor, chunk: usize, f: impl Fn(Tensor) -> R
     starts
         .par_iter()
         .map(|&s| {
+            crate::interrupt::check()?;
             let part = input.slice_axis(Axis(0), Slice::from(s..(s + chunk).min(n))).to_owned();
             f(part)
         })

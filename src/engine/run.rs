@@ -197,6 +197,23 @@ fn node_error(node: &super::Node, message: String) -> Error {
     Error::Node { node: node.name.clone(), op: node.op.name().into(), message }
 }
 
+/// The error for the first node whose output holds NaN or infinity (its inputs were all finite,
+/// since every earlier node's output and every given value was checked).
+fn non_finite(node: &super::Node, out: &Tensor, at: usize) -> Error {
+    let value = out.iter().nth(at).copied().unwrap_or(f32::NAN);
+    let count = out.iter().filter(|v| !v.is_finite()).count();
+    Error::Numerical {
+        node: node.name.clone(),
+        op: node.op.name().into(),
+        message: format!(
+            "its output (shape {:?}) holds {count} non-finite value(s), the first {value} at flat index {at}, \
+             although its inputs were finite; the weights or the stimulus contrast may be far outside the \
+             range the model was trained on",
+            out.shape()
+        ),
+    }
+}
+
 impl Graph {
     /// Run the graph on a batch (`input` has the model's input shape with any batch size),
     /// applying `overrides`, and keep every activation.
@@ -236,6 +253,17 @@ impl Graph {
         }
         let mut values: Vec<Option<Tensor>> = vec![None; self.values.len()];
         for (id, t) in given {
+            if let Some(bad) = t.iter().position(|v| !v.is_finite()) {
+                return Err(Error::Numerical {
+                    node: self.values[id].name.clone(),
+                    op: "given value".into(),
+                    message: format!(
+                        "entry {bad} of the {:?} value handed to the model is {}; check the stimulus",
+                        t.shape(),
+                        t.iter().nth(bad).copied().unwrap_or(f32::NAN)
+                    ),
+                });
+            }
             values[id] = Some(t);
         }
         let mut required = vec![false; self.values.len()];
@@ -266,6 +294,9 @@ impl Graph {
             let mut out = node.op.forward(&inputs).map_err(|e| node_error(node, e.0))?;
             for o in overrides.iter().filter(|o| o.value == node.output) {
                 o.apply(&mut out, self)?;
+            }
+            if let Some(bad) = out.iter().position(|v| !v.is_finite()) {
+                return Err(non_finite(node, &out, bad));
             }
             values[node.output] = Some(out);
         }

@@ -105,6 +105,13 @@ impl Model {
             }
         };
         let shape = input_shape(input, options).map_err(&err)?;
+        // The checks below run the graph on a batch of one and two: refuse a declared input too
+        // large for that before allocating it (a damaged or hostile file can declare any size).
+        crate::memory::check(
+            &format!("model '{}': its declared input {:?} on a batch of two", path.display(), &shape[1..]),
+            crate::memory::f32_bytes(&shape[1..]).and_then(|b| b.checked_mul(2)),
+            0.25,
+        )?;
         let order = topological_order(g).map_err(&err)?;
         let transposed = g.node.iter().find(|n| n.input.contains(&input.name)).is_some_and(|n| {
             n.op_type == "Transpose" && n.attribute.iter().any(|a| a.name == "perm" && a.ints == [0, 3, 1, 2])
@@ -206,6 +213,11 @@ impl Model {
             .collect();
         let proto = export_proto(&proto, &nodes, &values, &walk, extra_inits, input, &shape, &outputs);
         let graph = Graph { values, nodes, input: 0, outputs };
+        crate::memory::check(
+            &format!("model '{}': the activations of one sample", path.display()),
+            Some(graph.bytes_per_sample() as u64 * 2),
+            0.25,
+        )?;
         check_batches(&graph, path)?;
         Ok(Model { path: path.into(), graph, binding, opset, proto, folded, node_parameters })
     }

@@ -13,4 +13,4 @@ pub mod tensor_proto;
 pub use fast::FastPath;
 pub use layout::{InputBinding, InputLayout};
 pub use load::{LoadOptions, Model};
-pub use read::read_proto;
+pub use read::{decode_proto, read_proto};

@@ -9,11 +9,16 @@ use tract_onnx::pb::ModelProto;
 /// Read and decode `path` as an ONNX ModelProto.
 pub fn read_proto(path: &Path) -> Result<ModelProto> {
     let bytes = std::fs::read(path).map_err(|e| Error::io("read the model", path, e))?;
-    let model_error = |message: String| Error::Model { path: path.into(), message };
+    decode_proto(&bytes, path)
+}
+
+/// As [`read_proto`], from the file's bytes (`path` names it in messages).
+pub fn decode_proto(bytes: &[u8], path: &Path) -> Result<ModelProto> {
+    let model_error = |message: String| Error::input(path, message);
     if bytes.is_empty() {
-        return Err(model_error("the file is empty; expected an ONNX model (.onnx)".into()));
+        return Err(model_error("is empty; expected an ONNX model (.onnx)".into()));
     }
-    let proto = ModelProto::decode(&bytes[..]).map_err(|e| {
+    let proto = ModelProto::decode(bytes).map_err(|e| {
         model_error(format!(
             "is not a readable ONNX model: protobuf decoding failed ({e}). The file may be \
              truncated (an interrupted copy or download) or not an ONNX file at all; export it \

@@ -20,7 +20,9 @@ pub fn decode(t: &TensorProto) -> Result<Tensor, String> {
         .iter()
         .map(|&d| usize::try_from(d).map_err(|_| format!("tensor '{}' has dims {:?}", t.name, t.dims)))
         .collect::<Result<_, _>>()?;
-    let count: usize = shape.iter().product();
+    let count = shape.iter().try_fold(1usize, |n, &d| n.checked_mul(d)).ok_or_else(|| {
+        format!("tensor '{}' declares dims {:?}, more values than this machine can address", t.name, t.dims)
+    })?;
     let values: Vec<f32> = match DataType::try_from(t.data_type) {
         Ok(DataType::Float) if t.raw_data.is_empty() => t.float_data.clone(),
         Ok(DataType::Float) => le_chunks::<4>(&t.raw_data).map(f32::from_le_bytes).collect(),

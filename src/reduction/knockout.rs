@@ -169,7 +169,7 @@ pub fn read_back(
         let row = rows
             .iter()
             .find(|r| r["units"].as_array().is_some_and(|x| x.len() == 1 && x[0] == u.as_str()))
-            .ok_or_else(|| Error::Usage(format!("'{}' has no knock-out of {u} alone", dir.display())))?;
+            .ok_or_else(|| Error::input(dir.join("knockouts.json"), format!("has no knock-out of {u} alone")))?;
         effects.push(Effect {
             units: vec![u.clone()],
             relative_rms_change: f(&row["relative_rms_change"]),

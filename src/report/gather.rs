@@ -103,10 +103,7 @@ pub fn gather(paths: &[PathBuf]) -> Result<Gathered> {
     let mut dirs = Vec::new();
     for p in paths {
         if !p.is_dir() {
-            return Err(Error::Usage(format!(
-                "'{}' is not a folder: give the folders that hold sufficit results",
-                p.display()
-            )));
+            return Err(Error::input(p, "is not a folder: give the folders that hold sufficit results"));
         }
         walk(p, &mut dirs)?;
     }
@@ -140,12 +137,15 @@ pub fn gather(paths: &[PathBuf]) -> Result<Gathered> {
     }
     if g.by_model.is_empty() {
         let names: Vec<&str> = Kind::ALL.iter().map(|k| k.file()).collect();
-        return Err(Error::Usage(format!(
-            "no sufficit results with a model under {}: looked for folders holding {} (and run.json). \
-             Give the folders written by respond, attribute, reduce or knockout.",
-            paths.iter().map(|p| format!("'{}'", p.display())).collect::<Vec<_>>().join(", "),
-            names.join(", ")
-        )));
+        let listed = paths.iter().map(|p| format!("'{}'", p.display())).collect::<Vec<_>>().join(", ");
+        return Err(Error::input(
+            paths.first().cloned().unwrap_or_default(),
+            format!(
+                "no sufficit results with a model under {listed}: looked for folders holding {} (and run.json). \
+                 Give the folders written by respond, attribute, reduce or knockout.",
+                names.join(", ")
+            ),
+        ));
     }
     if g.by_model.len() > 1 {
         g.warnings.push(format!(
@@ -187,16 +187,20 @@ fn check_schema(path: &Path, doc: &Value) -> Result<()> {
     let version = schema.strip_prefix("sufficit/").and_then(|v| v.parse::<u64>().ok());
     match version {
         Some(SCHEMA) => Ok(()),
-        Some(v) if v > SCHEMA => Err(Error::Usage(format!(
-            "'{}' was written by a newer sufficit (schema \"sufficit/{v}\"); this version reads \
-             \"sufficit/{SCHEMA}\". Update sufficit to report on these results.",
-            path.display()
-        ))),
-        _ => Err(Error::Usage(format!(
-            "'{}' has schema {:?}, expected \"sufficit/{SCHEMA}\": not a result this version of sufficit wrote",
-            path.display(),
-            doc.get("schema").map(|s| s.to_string()).unwrap_or_else(|| "(none)".into())
-        ))),
+        Some(v) if v > SCHEMA => Err(Error::input(
+            path,
+            format!(
+                "was written by a newer sufficit (schema \"sufficit/{v}\"); this version reads \
+                 \"sufficit/{SCHEMA}\". Update sufficit to report on these results."
+            ),
+        )),
+        _ => Err(Error::input(
+            path,
+            format!(
+                "has schema {}, expected \"sufficit/{SCHEMA}\": not a result this version of sufficit wrote",
+                doc.get("schema").map(|s| s.to_string()).unwrap_or_else(|| "(none)".into())
+            ),
+        )),
     }
 }
 

@@ -25,9 +25,7 @@ pub fn figure(id: &str, caption: &str, chart: bool, f: &impl Figure) -> Result<B
 }
 
 fn npy2(path: &Path) -> Result<Array2<f32>> {
-    read_npy(path)?
-        .into_dimensionality()
-        .map_err(|_| Error::Usage(format!("'{}' should be a 2-D array", path.display())))
+    read_npy(path)?.into_dimensionality().map_err(|_| Error::input(path, "should be a 2-D array"))
 }
 
 /// Rows of a CSV file written by sufficit (header, then comma-separated fields, no quoting).
@@ -40,10 +38,7 @@ fn csv(path: &Path) -> Result<(Vec<String>, Vec<Vec<String>>)> {
 
 /// Column `name` of a CSV as numbers (empty or unparsable fields become NaN).
 fn column(head: &[String], rows: &[Vec<String>], name: &str, path: &Path) -> Result<Vec<f64>> {
-    let i = head
-        .iter()
-        .position(|h| h == name)
-        .ok_or_else(|| Error::Usage(format!("'{}' has no column '{name}'", path.display())))?;
+    let i = head.iter().position(|h| h == name).ok_or_else(|| Error::input(path, format!("has no column '{name}'")))?;
     Ok(rows.iter().map(|r| r.get(i).and_then(|v| v.parse().ok()).unwrap_or(f64::NAN)).collect())
 }
 
@@ -255,12 +250,10 @@ pub fn attribution_section(id: &str, a: &Folder, frame_ms: f64) -> Result<Vec<Bl
         .collect();
     let time = npy2(&a.file("conductance_time.npy"))?;
     if time.nrows() != labels.len() {
-        return Err(Error::Usage(format!(
-            "'{}' has {} rows but attribution.json lists {} units",
-            a.file("conductance_time.npy").display(),
-            time.nrows(),
-            labels.len()
-        )));
+        return Err(Error::input(
+            a.file("conductance_time.npy"),
+            format!("has {} rows but attribution.json lists {} units", time.nrows(), labels.len()),
+        ));
     }
     let first = d.pointer("/target/frames/0").and_then(Value::as_u64).unwrap_or(0) as usize;
     let last = (d.pointer("/target/frames/1").and_then(Value::as_u64).unwrap_or(time.ncols() as u64) as usize)
@@ -416,9 +409,8 @@ pub fn reduction_section(id: &str, r: &Folder, meta: Option<&Meta>) -> Result<Ve
         let file = |k: &str| u["files"][k].as_str().map(|f| r.file(f));
         let (Some(sp), Some(tm)) = (file("spatial"), file("temporal")) else { continue };
         let spatial = npy2(&sp)?;
-        let temporal: Array1<f32> = read_npy(&tm)?
-            .into_dimensionality()
-            .map_err(|_| Error::Usage(format!("'{}' should be a 1-D array", tm.display())))?;
+        let temporal: Array1<f32> =
+            read_npy(&tm)?.into_dimensionality().map_err(|_| Error::input(&tm, "should be a 1-D array"))?;
         let curve = match file("nonlinearity").filter(|p| p.exists()) {
             Some(p) => {
                 let (h, rows) = csv(&p)?;

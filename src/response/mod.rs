@@ -76,6 +76,7 @@ pub fn rates_with(
     let parts: Vec<Array2<f32>> = starts
         .par_iter()
         .map(|&first| {
+            crate::interrupt::check()?;
             let n = chunk.min(frames - first);
             let input = model.binding.to_model_input(windows(movie, model.binding.lags, first, n));
             let r = per_sample(g.forward(input, overrides)?.outputs()[0])?;

@@ -56,9 +56,15 @@ impl Canvas {
         um / self.pixel_um
     }
 
-    /// A gray (contrast 0) movie of `frames` frames.
-    pub fn blank(&self, frames: usize) -> Array3<f32> {
-        Array3::zeros((frames, self.height, self.width))
+    /// A gray (contrast 0) movie of `frames` frames; refused when it (twice: the movie and the
+    /// windows cut from it) would exceed half the memory bound.
+    pub fn blank(&self, frames: usize) -> crate::Result<Array3<f32>> {
+        crate::memory::check(
+            &format!("a stimulus of {frames} frames of {}x{} pixels", self.height, self.width),
+            crate::memory::f32_bytes(&[frames, self.height, self.width, 2]),
+            0.5,
+        )?;
+        Ok(Array3::zeros((frames, self.height, self.width)))
     }
 
     /// Horizontal position of pixel column `x`'s centre, in pixels from the left edge.

@@ -11,7 +11,7 @@ mod store;
 
 pub use canvas::Canvas;
 pub use params::{Params, Spec};
-pub use store::{read_meta, read_movie, read_stimulus, write_stimulus};
+pub use store::{check_stimulus, parse_meta, read_meta, read_movie, read_stimulus, write_stimulus};
 
 use ndarray::Array3;
 use serde::{Deserialize, Serialize};
@@ -113,7 +113,7 @@ impl Stimulus {
     /// Prepend `canvas.lags` gray frames to a drawn protocol and shift its events and windows.
     pub fn assemble(protocol: &str, params: &Params, canvas: &Canvas, seed: u64, drawn: Drawn) -> Stimulus {
         let h = canvas.lags;
-        let mut movie = canvas.blank(h + drawn.movie.shape()[0]);
+        let mut movie = Array3::zeros((h + drawn.movie.shape()[0], canvas.height, canvas.width));
         movie.slice_mut(ndarray::s![h.., .., ..]).assign(&drawn.movie);
         let shift_e = |e: Event| Event { frame: e.frame + h, ..e };
         let shift_w = |w: Window| Window { start: w.start + h, end: w.end + h, ..w };

@@ -20,70 +20,72 @@ pub fn read_meta(dir: &Path) -> Result<Meta> {
     let meta_path = dir.join("stimulus.json");
     let text =
         std::fs::read_to_string(&meta_path).map_err(|e| Error::io("read the stimulus description", &meta_path, e))?;
-    serde_json::from_str(&text)
-        .map_err(|e| Error::Usage(format!("'{}' is not a sufficit stimulus description: {e}", meta_path.display())))
+    parse_meta(&text, &meta_path)
+}
+
+/// A stimulus description from its JSON text (`path` names it in messages).
+pub fn parse_meta(text: &str, path: &Path) -> Result<Meta> {
+    serde_json::from_str(text).map_err(|e| Error::input(path, format!("is not a sufficit stimulus description: {e}")))
 }
 
 /// Read a stimulus folder: the movie must be f32 `[frames, H, W]` and agree with stimulus.json.
 pub fn read_stimulus(dir: &Path) -> Result<Stimulus> {
-    let meta_path = dir.join("stimulus.json");
     let meta = read_meta(dir)?;
     let movie = read_movie(&dir.join("movie.npy"))?;
-    if movie.shape() != [meta.frames, meta.height, meta.width] {
-        return Err(Error::Usage(format!(
-            "'{}' has shape {:?} but stimulus.json describes [{}, {}, {}]",
-            dir.join("movie.npy").display(),
-            movie.shape(),
-            meta.frames,
-            meta.height,
-            meta.width
-        )));
+    check_stimulus(&meta, movie.shape(), dir)?;
+    Ok(Stimulus { movie, meta })
+}
+
+/// Check a description against its movie's shape: sizes agree, windows and events lie inside
+/// the movie. `dir` names the folder in messages.
+pub fn check_stimulus(meta: &Meta, movie_shape: &[usize], dir: &Path) -> Result<()> {
+    let meta_path = dir.join("stimulus.json");
+    if movie_shape != [meta.frames, meta.height, meta.width] {
+        return Err(Error::input(
+            dir.join("movie.npy"),
+            format!(
+                "has shape {:?} but stimulus.json describes [{}, {}, {}]",
+                movie_shape, meta.frames, meta.height, meta.width
+            ),
+        ));
+    }
+    if !(meta.frame_rate_hz > 0.0 && meta.pixel_size_um > 0.0) || meta.history_frames > meta.frames {
+        return Err(Error::input(
+            &meta_path,
+            format!(
+                "frame_rate_hz {} and pixel_size_um {} must be positive and history_frames {} at most frames {}",
+                meta.frame_rate_hz, meta.pixel_size_um, meta.history_frames, meta.frames
+            ),
+        ));
     }
     let outside = |f: usize| f > meta.frames;
     if let Some(w) = meta.windows.iter().find(|w| w.start >= w.end || outside(w.end)) {
-        return Err(Error::Usage(format!(
-            "'{}': window '{}' spans frames {}..{}, not inside the movie's {} frames",
-            meta_path.display(),
-            w.name,
-            w.start,
-            w.end,
-            meta.frames
-        )));
+        return Err(Error::input(
+            &meta_path,
+            format!(
+                "window '{}' spans frames {}..{}, not inside the movie's {} frames",
+                w.name, w.start, w.end, meta.frames
+            ),
+        ));
     }
     if let Some(e) = meta.events.iter().find(|e| e.frame >= meta.frames) {
-        return Err(Error::Usage(format!(
-            "'{}': event '{}' at frame {} lies beyond the movie's {} frames",
-            meta_path.display(),
-            e.name,
-            e.frame,
-            meta.frames
-        )));
+        return Err(Error::input(
+            &meta_path,
+            format!("event '{}' at frame {} lies beyond the movie's {} frames", e.name, e.frame, meta.frames),
+        ));
     }
-    Ok(Stimulus { movie, meta })
+    Ok(())
 }
 
 /// Read a `.npy` movie, explaining dtype or rank problems.
 pub fn read_movie(path: &Path) -> Result<Array3<f32>> {
-    let file = std::fs::File::open(path).map_err(|e| Error::io("read the movie", path, e))?;
-    let any: ndarray::ArrayD<f32> = ndarray_npy::ReadNpyExt::read_npy(file).map_err(|e| {
-        Error::Usage(format!(
-            "'{}' must be a float32 .npy array [frames, height, width] (numpy: np.save(path, movie.astype(np.float32))): {e}",
-            path.display()
-        ))
-    })?;
+    let any = crate::output::read_npy(path)?;
     let shape = any.shape().to_vec();
     let movie = any.into_dimensionality::<ndarray::Ix3>().map_err(|_| {
-        Error::Usage(format!(
-            "'{}' has rank {} (shape {shape:?}); a movie is [frames, height, width]",
-            path.display(),
-            shape.len()
-        ))
+        Error::input(path, format!("has rank {} (shape {shape:?}); a movie is [frames, height, width]", shape.len()))
     })?;
     if let Some(bad) = movie.iter().position(|v| !v.is_finite()) {
-        return Err(Error::Usage(format!(
-            "'{}' holds NaN or infinite values (first at flat index {bad})",
-            path.display()
-        )));
+        return Err(Error::input(path, format!("holds NaN or infinite values (first at flat index {bad})")));
     }
     Ok(movie)
 }

@@ -138,9 +138,14 @@ const REDUCTION: [&str; 2] = ["fidelity", "metric"];
 /// study and every problem found (with key and line); only unreadable TOML fails at once.
 pub fn read(path: &Path) -> Result<(StudyFile, Vec<String>)> {
     let raw = std::fs::read_to_string(path).map_err(|e| Error::io("read the study file", path, e))?;
+    parse(raw, path)
+}
+
+/// As [`read`], from the file's text (`path` names it in messages and anchors relative paths).
+pub fn parse(raw: String, path: &Path) -> Result<(StudyFile, Vec<String>)> {
     let doc = toml_edit::Document::parse(raw.clone()).map_err(|e| {
         let line = e.span().map_or(0, |s| raw[..s.start.min(raw.len())].matches('\n').count() + 1);
-        Error::Usage(format!("{}:{line}: not valid TOML: {}", path.display(), e.message()))
+        Error::input(path, format!("line {line}: not valid TOML: {}", e.message()))
     })?;
     let base = path.parent().unwrap_or(Path::new(".")).to_path_buf();
     let mut p = Problems { raw: &raw, file: path, list: Vec::new() };
@@ -340,8 +345,11 @@ fn number(item: &Item) -> Option<f64> {
 }
 
 /// One error holding every problem, one per line.
-pub fn problems_error(list: &[String]) -> Error {
-    Error::Usage(format!("the study file has {} problem(s); nothing was run:\n  {}", list.len(), list.join("\n  ")))
+pub fn problems_error(path: &Path, list: &[String]) -> Error {
+    Error::input(
+        path,
+        format!("the study file has {} problem(s); nothing was run:\n  {}", list.len(), list.join("\n  ")),
+    )
 }
 
 fn cells_value(item: &Item) -> std::result::Result<Cells, String> {

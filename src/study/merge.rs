@@ -62,15 +62,12 @@ fn copy_unit(from: &Path, to: &OutputDir, rel: &Path) -> Result<()> {
 
 /// Merge the sealed results of `inputs` into `out`.
 pub fn merge(inputs: &[PathBuf], out: &Path) -> Result<Merged> {
+    if let Some(input) = inputs.iter().find(|i| !i.join("study.json").is_file()) {
+        return Err(Error::input(input, "holds no study.json: give the output folders of `sufficit study` runs"));
+    }
     let target = OutputDir::create(out)?;
     let mut merged = Merged::default();
     for input in inputs {
-        if !input.join("study.json").is_file() {
-            return Err(Error::Usage(format!(
-                "'{}' holds no study.json: give the output folders of `sufficit study` runs",
-                input.display()
-            )));
-        }
         let mut units = Vec::new();
         sealed(input, input, &mut units)?;
         for rel in units {

@@ -154,7 +154,7 @@ pub fn plan(file: StudyFile, mut problems: Vec<String>) -> Result<Plan> {
         }
     }
     if !problems.is_empty() {
-        return Err(problems_error(&problems));
+        return Err(problems_error(&file.path, &problems));
     }
     let mut shared = Vec::new();
     let mut jobs = Vec::new();

@@ -196,6 +196,8 @@ pub fn run(plan: &Plan, shard: Option<(usize, usize)>, quiet: bool, exec: Exec) 
         .collect();
     line.finish_and_clear();
     overall.finish_and_clear();
+    // Jobs cut short by Ctrl-C were not sealed; a re-run redoes them.
+    crate::interrupt::check()?;
     Ok(reports)
 }
 

@@ -78,7 +78,7 @@ impl Protocol for DifferentialMotion {
             .collect();
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
         let trials = p.num("trials") as usize;
-        let mut movie = c.blank(2 * trials * trial);
+        let mut movie = c.blank(2 * trials * trial)?;
         let (mut events, mut windows) = (Vec::new(), Vec::new());
         for k in 0..2 * trials {
             let differential = k % 2 == 1;

@@ -62,7 +62,7 @@ impl Protocol for Flashes {
             )));
         }
         let contrasts = p.list("contrasts");
-        let mut movie = c.blank(rest + 2 * contrasts.len() * interval);
+        let mut movie = c.blank(rest + 2 * contrasts.len() * interval)?;
         let mut events = Vec::new();
         let mut windows = vec![Window { name: "baseline".into(), start: rest / 2, end: rest, condition: None }];
         let mut onset = rest;

@@ -71,7 +71,7 @@ impl Protocol for Gratings {
         }
         let theta = p.num("direction_deg").to_radians();
         let contrast = p.num("contrast");
-        let mut movie = c.blank(gap + sfs.len() * tfs.len() * (dur + gap));
+        let mut movie = c.blank(gap + sfs.len() * tfs.len() * (dur + gap))?;
         let (mut events, mut windows) = (Vec::new(), Vec::new());
         let mut t0 = gap;
         for &sf in &sfs {

@@ -22,17 +22,17 @@ fn read_png_folder(dir: &Path) -> Result<Array3<f32>> {
         .collect();
     files.sort();
     if files.is_empty() {
-        return Err(Error::Usage(format!("'{}' holds no .png frames", dir.display())));
+        return Err(Error::input(dir, "holds no .png frames"));
     }
     let mut frames = Vec::new();
     for f in &files {
         let img =
-            image::open(f).map_err(|e| Error::Usage(format!("cannot read frame '{}': {e}", f.display())))?.to_luma8();
+            image::open(f).map_err(|e| Error::input(f, format!("is not a readable image frame: {e}")))?.to_luma8();
         frames.push(img);
     }
     let (w, h) = frames[0].dimensions();
     if let Some((f, _)) = files.iter().zip(&frames).find(|(_, i)| i.dimensions() != (w, h)) {
-        return Err(Error::Usage(format!("frame '{}' is not {w}x{h} like the first frame", f.display())));
+        return Err(Error::input(f, format!("is not {w}x{h} pixels like the first frame")));
     }
     Ok(Array3::from_shape_fn((frames.len(), h as usize, w as usize), |(t, y, x)| {
         frames[t].get_pixel(x as u32, y as u32)[0] as f32 / 127.5 - 1.0
@@ -61,18 +61,16 @@ impl Protocol for UserMovie {
         let movie = if path.is_dir() { read_png_folder(path)? } else { read_movie(path)? };
         let (f, h, w) = movie.dim();
         if (h, w) != (c.height, c.width) {
-            return Err(Error::Usage(format!(
-                "movie '{}' has frames of {h}x{w} pixels but the model takes {}x{}; resample the movie first",
-                path.display(),
-                c.height,
-                c.width
-            )));
+            return Err(Error::input(
+                path,
+                format!(
+                    "has frames of {h}x{w} pixels but the model takes {}x{}; resample the movie first",
+                    c.height, c.width
+                ),
+            ));
         }
         if movie.iter().any(|v| v.abs() > 1.0) {
-            return Err(Error::Usage(format!(
-                "movie '{}' has values outside the contrast range -1..1",
-                path.display()
-            )));
+            return Err(Error::input(path, "has values outside the contrast range -1..1"));
         }
         Ok(Drawn {
             movie,

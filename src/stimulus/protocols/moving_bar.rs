@@ -67,7 +67,7 @@ impl Protocol for MovingBar {
             return Err(Error::Usage(format!("moving-bar: the sweep would take {total} frames; raise speed_um_s")));
         }
         let contrast = p.num("contrast") as f32;
-        let mut movie = c.blank(total);
+        let mut movie = c.blank(total)?;
         for t in 0..total {
             let x = bar_centre(-width / 2.0, v, f64::INFINITY, t as f64);
             let x = if leftward { c.width as f64 - x } else { x };

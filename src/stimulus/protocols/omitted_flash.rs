@@ -131,7 +131,7 @@ impl Protocol for OmittedFlash {
             }
             t += (slots - 1) * period + after.max(period);
         }
-        let mut movie = c.blank(t);
+        let mut movie = c.blank(t)?;
         for (start, len) in frames {
             movie.slice_mut(ndarray::s![start..start + len, .., ..]).fill(contrast);
         }

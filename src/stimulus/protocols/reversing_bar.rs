@@ -96,7 +96,7 @@ impl Protocol for ReversingBar {
         }
         let total = reversal as usize + c.frames(p.num("after_ms")).max(win);
         let contrast = p.num("contrast") as f32;
-        let mut movie = c.blank(total);
+        let mut movie = c.blank(total)?;
         for t in 0..total {
             let centre = bar_centre(x0, v, reversal, t as f64);
             draw_vertical_bar(movie.index_axis_mut(ndarray::Axis(0), t), centre, width, contrast);

@@ -42,7 +42,7 @@ impl Protocol for Steps {
             return Err(Error::Usage("steps: step_ms must last at least 4 frames and gap_ms one frame".into()));
         }
         let contrasts = p.list("contrasts");
-        let mut movie = c.blank(gap + 2 * contrasts.len() * (step + gap));
+        let mut movie = c.blank(gap + 2 * contrasts.len() * (step + gap))?;
         let (mut events, mut windows) =
             (Vec::new(), vec![Window { name: "baseline".into(), start: gap / 2, end: gap, condition: None }]);
         let mut t = gap;

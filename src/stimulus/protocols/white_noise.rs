@@ -111,7 +111,7 @@ impl Protocol for WhiteNoise {
             (p.text("kind") == "gaussian", p.num("contrast") as f32, p.num("hold_frames") as usize);
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
         let normal = rand_distr::Normal::new(0.0f32, contrast / 3.0).map_err(|e| Error::Usage(e.to_string()))?;
-        let mut movie = c.blank(frames);
+        let mut movie = c.blank(frames)?;
         let mut pattern = Array2::<f32>::zeros((ny, nx));
         for t in 0..frames {
             if t % hold == 0 {
