@@ -34,6 +34,17 @@ pub struct DemoModelsArgs {
     /// The objective.
     #[arg(long, value_enum, default_value_t = FitSettings::default().loss)]
     pub loss: crate::demo::train::Loss,
+    /// Channels of the two convolutions, e.g. 16,8.
+    #[arg(long, value_name = "C1,C2", value_parser = channels, default_value = "8,8")]
+    pub channels: (usize, usize),
+}
+
+/// Parse `C1,C2`.
+fn channels(s: &str) -> Result<(usize, usize), String> {
+    match s.split_once(',').map(|(a, b)| (a.trim().parse::<usize>(), b.trim().parse::<usize>())) {
+        Some((Ok(a), Ok(b))) if a > 0 && b > 0 => Ok((a, b)),
+        _ => Err(format!("'{s}': expected two positive channel counts such as 16,8")),
+    }
 }
 
 /// Write the models.
@@ -47,6 +58,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             epochs: a.epochs,
             lr: a.lr,
             loss: a.loss,
+            channels: a.channels,
             ..Default::default()
         };
         let (model, report) = fit(&settings, &|e| {

@@ -143,7 +143,21 @@ impl Model {
                 proto_node = node;
                 built = rebuilt;
             }
-            let data_names: Vec<String> = built.data_inputs.iter().map(|&k| proto_node.input[k].clone()).collect();
+            let data_names: Vec<String> = built
+                .data_inputs
+                .iter()
+                .map(|&k| {
+                    proto_node.input.get(k).cloned().ok_or_else(|| Error::Node {
+                        node: name.clone(),
+                        op: proto_node.op_type.clone(),
+                        message: format!(
+                            "has {} input(s) but the operator needs input {} as well",
+                            proto_node.input.len(),
+                            k + 1
+                        ),
+                    })
+                })
+                .collect::<Result<_>>()?;
             let dummy: Vec<&Tensor> = data_names
                 .iter()
                 .map(|n| {

@@ -17,6 +17,10 @@ impl Op for Concat {
 
     fn forward(&self, inputs: &[&Tensor]) -> OpResult<Tensor> {
         let axis = normalize_axis(self.axis, inputs[0].ndim())?;
+        if inputs.iter().any(|t| t.ndim() != inputs[0].ndim()) {
+            let shapes: Vec<_> = inputs.iter().map(|t| t.shape().to_vec()).collect();
+            return Err(format!("shapes {shapes:?} have different ranks; Concat joins tensors of one rank").into());
+        }
         let views: Vec<_> = inputs.iter().map(|t| t.view()).collect();
         ndarray::concatenate(Axis(axis), &views).map_err(|_| {
             let shapes: Vec<_> = inputs.iter().map(|t| t.shape().to_vec()).collect();

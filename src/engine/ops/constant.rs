@@ -40,6 +40,7 @@ impl Op for ConstantOfShape {
     }
     fn forward(&self, inputs: &[&Tensor]) -> OpResult<Tensor> {
         let shape: Vec<usize> = inputs[0].iter().map(|&v| v.max(0.0) as usize).collect();
+        super::check_output_size(&shape)?;
         Ok(ArrayD::from_elem(IxDyn(&shape), self.value))
     }
     fn backward(&self, _args: &BackwardArgs) -> OpResult<Vec<Option<Tensor>>> {

@@ -86,6 +86,9 @@ impl Op for Conv {
     fn forward(&self, inputs: &[&Tensor]) -> OpResult<Tensor> {
         let (x, w) = (inputs[0], inputs[1]);
         let d = self.dims(x, w)?;
+        if let Some(b) = inputs.get(2).filter(|b| b.shape() != [d.cout]) {
+            return Err(format!("bias has shape {:?}; expected [{}], one per output channel", b.shape(), d.cout).into());
+        }
         let x = x.as_standard_layout();
         let w = w.as_standard_layout();
         let (xs, ws) = (x.as_slice().ok_or("input layout")?, w.as_slice().ok_or("weight layout")?);

@@ -118,16 +118,30 @@ impl Geometry {
     /// Plan a window op over an input of spatial size `input`.
     pub fn new(a: &WindowAttrs, input: &[usize]) -> OpResult<Self> {
         let r = a.kernel.len();
+        if r == 0 {
+            return Err("a convolution or pooling needs at least one spatial axis".into());
+        }
         if input.len() != r {
             return Err(format!("input has {} spatial axes but the kernel has {r}", input.len()).into());
         }
-        let extent = a.extent();
+        // Attributes (pads, dilations, kernel_shape of pooling) come from the file: sizes are
+        // computed with checked arithmetic and bounded before anything is allocated.
+        let too_large =
+            || format!("kernel {:?}, dilations {:?} and pads {:?} are too large", a.kernel, a.dilations, a.pads);
+        let extent: Vec<usize> = a
+            .kernel
+            .iter()
+            .zip(&a.dilations)
+            .map(|(&k, &d)| (k - 1).checked_mul(d).and_then(|e| e.checked_add(1)))
+            .collect::<Option<_>>()
+            .ok_or_else(too_large)?;
+        super::check_output_size(&a.kernel)?;
         let (mut pad_begin, mut pad_end) = (vec![0; r], vec![0; r]);
         for d in 0..r {
             match a.auto_pad.as_str() {
                 "SAME_UPPER" | "SAME_LOWER" => {
-                    let out = input[d].div_ceil(a.strides[d]);
-                    let need = ((out - 1) * a.strides[d] + extent[d]).saturating_sub(input[d]);
+                    let out = input[d].div_ceil(a.strides[d]).max(1);
+                    let need = ((out - 1) * a.strides[d]).saturating_add(extent[d]).saturating_sub(input[d]);
                     let small = need / 2;
                     let (b, e) = if a.auto_pad == "SAME_UPPER" { (small, need - small) } else { (need - small, small) };
                     pad_begin[d] = b;
@@ -140,7 +154,11 @@ impl Geometry {
                 }
             }
         }
-        let mut padded: Vec<usize> = (0..r).map(|d| input[d] + pad_begin[d] + pad_end[d]).collect();
+        let mut padded: Vec<usize> = (0..r)
+            .map(|d| input[d].checked_add(pad_begin[d]).and_then(|p| p.checked_add(pad_end[d])))
+            .collect::<Option<_>>()
+            .ok_or_else(too_large)?;
+        super::check_output_size(&padded)?;
         let mut output = Vec::with_capacity(r);
         for d in 0..r {
             if padded[d] < extent[d] {

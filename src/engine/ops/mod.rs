@@ -154,6 +154,14 @@ pub fn supported_list() -> String {
     REGISTRY.iter().map(|(n, _)| *n).collect::<Vec<_>>().join(", ")
 }
 
+/// Refuse an output whose shape comes from the model's constants (pads, shapes) rather than from
+/// data it holds, when it would exceed a quarter of the memory bound: a damaged or hostile file
+/// could otherwise make a single op allocate without limit.
+pub fn check_output_size(shape: &[usize]) -> OpResult<()> {
+    crate::memory::check(&format!("an output of shape {shape:?}"), crate::memory::f32_bytes(shape), 0.25)
+        .map_err(|e| OpError(e.to_string()))
+}
+
 /// Resolve a possibly negative axis against `rank`.
 pub fn normalize_axis(axis: i64, rank: usize) -> OpResult<usize> {
     let r = rank as i64;

@@ -36,14 +36,24 @@ impl Pad {
                 format!("pads {:?} must hold two values per padded axis ({} axes)", self.pads, axes.len()).into()
             );
         }
+        // Output lengths first (checked arithmetic), and the output's size against the memory
+        // bound, before any per-index map is built.
+        let mut out_shape = shape.to_vec();
+        for (i, &a) in axes.iter().enumerate() {
+            let (b, e) = (self.pads[i], self.pads[axes.len() + i]);
+            let len = (shape[a] as i64).checked_add(b).and_then(|l| l.checked_add(e));
+            match len {
+                Some(len) if len >= 0 => out_shape[a] = len as usize,
+                Some(_) => return Err(format!("pads {:?} crop more than axis {a} holds", self.pads).into()),
+                None => return Err(format!("pads {:?} are too large", self.pads).into()),
+            }
+        }
+        super::check_output_size(&out_shape)?;
         let mut maps: Vec<Vec<Option<usize>>> = shape.iter().map(|&n| (0..n).map(Some).collect()).collect();
         for (i, &a) in axes.iter().enumerate() {
             let n = shape[a] as i64;
             let (b, e) = (self.pads[i], self.pads[axes.len() + i]);
-            let len = n + b + e;
-            if len < 0 {
-                return Err(format!("pads {:?} crop more than axis {a} holds", self.pads).into());
-            }
+            let len = out_shape[a] as i64;
             if self.mode == Mode::Reflect && (n < 2 || b >= n || e >= n) && (b > 0 || e > 0) {
                 return Err(
                     format!("reflect padding of {b}/{e} needs an axis longer than the pad (axis {a} has {n})").into()

@@ -33,7 +33,9 @@ impl Slice {
             }
             let fix = |v: i64| if v < 0 { v + dim } else { v };
             let (s, e) = (fix(self.starts[i]), fix(self.ends[i]));
-            let (lo, hi) = if step > 0 {
+            let (lo, hi) = if dim == 0 {
+                (0, 0)
+            } else if step > 0 {
                 (s.clamp(0, dim), e.clamp(0, dim))
             } else {
                 // Negative step: walk from s (clamped to dim-1) down to e (exclusive, may be -1).
