@@ -45,7 +45,19 @@ fuzz_target!(|data: &[u8]| {
             let ours = tape.outputs()[0].clone();
             let theirs = FastPath::new(&model).expect("tract plan").run(x).expect("tract run").remove(0);
             assert_eq!(ours.shape(), theirs.shape());
+            // Softplus(x) = ln(exp(x) + 1) (ONNX operator specification) is finite for every
+            // finite x; evaluated as written, exp overflows f32 above x = 88.7 (ln of f32::MAX).
+            // tract then gives infinity (or NaN once infinities cancel) where the engine, which
+            // uses x + ln(1 + exp(-x)) there, stays finite: only such entries are excused.
+            let overflows = activation == "Softplus"
+                && ["conv1", "conv2"].iter().filter_map(|n| model.graph.find(n)).any(|id| {
+                    tape.try_value(id).is_some_and(|v| v.iter().any(|&p| p > 88.7))
+                });
             for (a, b) in ours.iter().zip(theirs.iter()) {
+                if overflows && !b.is_finite() {
+                    assert!(a.is_finite(), "engine {a} where tract overflowed");
+                    continue;
+                }
                 assert!((a - b).abs() <= 1e-3 * (1.0 + b.abs()), "engine {a} vs tract {b}");
             }
         }
