@@ -1,9 +1,8 @@
 //! Training movies for the fitted demo model: binary white noise, full-field flicker, and
-//! procedurally generated
-//! naturalistic movies: a large image with a 1/f amplitude spectrum (the statistics of natural
-//! scenes: Field, J. Opt. Soc. Am. A 1987) viewed through the frame as it drifts with a
-//! temporally correlated velocity (an Ornstein-Uhlenbeck process) interrupted by occasional
-//! jumps to a new position (saccade-like).
+//! procedurally generated naturalistic movies: a large image with a 1/f amplitude spectrum (the
+//! statistics of natural scenes: Field, J. Opt. Soc. Am. A 1987) viewed through the frame as it
+//! drifts with a temporally correlated velocity (an Ornstein-Uhlenbeck process) interrupted by
+//! occasional jumps to a new position (saccade-like).
 
 use ndarray::{Array2, Array3};
 use rand::rngs::ChaCha8Rng;

@@ -1,6 +1,6 @@
 //! Fitting an encoding model with the engine's own gradients: a loss between the model's rates
-//! and target rates (weighted squared error or Poisson deviance), gradients with respect to every parameter by reverse mode,
-//! and Adam updates (Kingma & Ba, ICLR 2015: the update rule and default constants below).
+//! and target rates (weighted squared error or Poisson deviance), gradients with respect to every
+//! parameter by reverse mode, and Adam updates (Kingma & Ba, ICLR 2015: the update rule and default constants below).
 
 use crate::engine::{Graph, ValueId};
 use crate::{Error, Result, Tensor};
@@ -71,7 +71,12 @@ pub fn mse(out: &Tensor, target: &Array2<f32>) -> Result<(f64, Tensor)> {
 /// As [`mse`], each cell's squared errors weighted (e.g. by 1 / its variance, so cells with large
 /// rates do not dominate the fit).
 pub fn weighted_mse(out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Result<(f64, Tensor)> {
-    weighted_mean(out, target, weights, |o, y| ((o - y).powi(2), 2.0 * (o - y)))
+    weighted_mean(out, target, weights, squared_error)
+}
+
+/// One entry's squared error and its derivative in `o`.
+fn squared_error(o: f64, y: f64) -> (f64, f64) {
+    ((o - y).powi(2), 2.0 * (o - y))
 }
 
 /// Mean over entries of `weight(cell) * term(out, target).0` and its gradient with respect to
@@ -116,12 +121,17 @@ pub enum Loss {
 }
 
 impl Loss {
+    /// One entry's loss and its derivative in the model's rate `o` (target `y`).
+    fn term(self) -> fn(f64, f64) -> (f64, f64) {
+        match self {
+            Loss::WeightedMse => squared_error,
+            Loss::Poisson => poisson_term,
+        }
+    }
+
     /// The loss (mean over all entries) and its gradient with respect to `out`.
     pub fn value_and_gradient(self, out: &Tensor, target: &Array2<f32>, weights: &[f32]) -> Result<(f64, Tensor)> {
-        match self {
-            Loss::WeightedMse => weighted_mse(out, target, weights),
-            Loss::Poisson => poisson_deviance(out, target, weights),
-        }
+        weighted_mean(out, target, weights, self.term())
     }
 
     /// Each cell's loss, mean over the batch.
@@ -130,10 +140,7 @@ impl Loss {
         let mut sums = vec![0.0; cells];
         for (i, (&o, &y)) in out.iter().zip(target.iter()).enumerate() {
             let w = weights.get(i % cells).copied().unwrap_or(1.0) as f64;
-            sums[i % cells] += w * match self {
-                Loss::WeightedMse => ((o - y) as f64).powi(2),
-                Loss::Poisson => poisson_term(o as f64, y as f64).0,
-            };
+            sums[i % cells] += w * self.term()(o as f64, y as f64).0;
         }
         let n = (target.nrows().max(1)) as f64;
         sums.iter().map(|s| s / n).collect()
