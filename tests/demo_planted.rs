@@ -3,39 +3,21 @@
 //! writes, and reduction recovers the planted pathways.
 
 mod cli_support;
+mod demo_support;
 
 use cli_support::{json, s, sufficit};
-use ndarray::Array2;
+use demo_support::run;
 use serde_json::Value;
-use std::path::Path;
 use sufficit::demo::planted::synthetic_sensor;
 use sufficit::model::builder::to_bytes;
-use sufficit::model::{LoadOptions, Model};
-use sufficit::response::rates;
-use sufficit::stimulus::protocols::{self, Observed};
-use sufficit::stimulus::{Canvas, Params, Stimulus};
+use sufficit::model::Model;
 
 fn shipped() -> std::path::PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("models").join(sufficit::demo::PLANTED_FILE)
+    demo_support::shipped(sufficit::demo::PLANTED_FILE)
 }
 
 fn model() -> Model {
-    Model::load(&shipped(), &LoadOptions::default()).unwrap()
-}
-
-/// Draw `protocol` with `params` at the model's size (100 Hz, 50 um pixels), run it, measure.
-fn run(m: &Model, protocol: &str, params: &[&str]) -> (Stimulus, Array2<f32>, Value) {
-    let b = &m.binding;
-    let c = Canvas { height: b.height, width: b.width, lags: b.lags, frame_rate_hz: 100.0, pixel_um: 50.0 };
-    let p = protocols::find(protocol).unwrap();
-    let args: Vec<String> = params.iter().map(|s| s.to_string()).collect();
-    let params = Params::parse(protocol, p.specs(), &args).unwrap();
-    let stim = Stimulus::assemble(protocol, &params, &c, 1, p.draw(&params, &c, 1).unwrap());
-    let r = rates(m, &stim.movie, &|_| {}).unwrap();
-    let centres = vec![(25.0, 25.0); 3];
-    let obs = Observed { meta: &stim.meta, movie: &stim.movie, rates: r.view(), lags: b.lags, rf_centres: &centres };
-    let summary = p.measure(&obs).unwrap().summary;
-    (stim, r, summary)
+    demo_support::load(sufficit::demo::PLANTED_FILE)
 }
 
 #[test]

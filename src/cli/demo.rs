@@ -3,7 +3,8 @@
 //! protocol attributed, reduced and knocked out.
 
 use super::{run_args, Common};
-use crate::output::{OutputDir, RunRecord};
+use crate::demo::recovered::{self, Recovery};
+use crate::output::{read_json, OutputDir, RunRecord};
 use crate::Result;
 use clap::Args;
 use serde_json::json;
@@ -44,6 +45,38 @@ pub struct DemoArgs {
 
 fn s(p: &Path) -> String {
     p.display().to_string()
+}
+
+/// Compare each cell's reduction with the planted pathways; written to `DIR/ground-truth/`
+/// (`ground_truth.json` and `run.json`) for the report. Returns the comparisons.
+fn ground_truth(dir: &Path, model: &Path, seed: u64) -> Result<Vec<Recovery>> {
+    let recoveries: Vec<Recovery> = CELLS
+        .iter()
+        .map(|(cell, _, _)| {
+            let path = dir.join(format!("cell-{cell}")).join("reduce").join("subcircuit.json");
+            recovered::compare(*cell, &read_json(&path)?, &path)
+        })
+        .collect::<Result<_>>()?;
+    let cells: Vec<serde_json::Value> = recoveries
+        .iter()
+        .zip(CELLS)
+        .map(|(r, (_, protocol, _))| {
+            let mut v = serde_json::to_value(r).unwrap_or_default();
+            v["protocol"] = json!(protocol);
+            v
+        })
+        .collect();
+    let out = OutputDir::create(&dir.join("ground-truth"))?;
+    out.write_json(
+        "ground_truth.json",
+        &json!({"schema": "sufficit/1", "planted": crate::demo::PLANTED_FILE, "threshold": recovered::RECOVERED_R,
+                "frame_ms": crate::demo::planted::FRAME_MS, "cells": cells}),
+    )?;
+    out.write_json(
+        "run.json",
+        &RunRecord::new("demo", Some(model), json!({"compared_with": crate::demo::PLANTED_FILE}), seed)?,
+    )?;
+    Ok(recoveries)
 }
 
 /// Run the demo.
@@ -88,6 +121,8 @@ pub fn run(a: &DemoArgs) -> Result<()> {
             run_args(quiet(args))?;
         }
     }
+    say("recovered vs planted");
+    let truth = ground_truth(&a.out, &model, a.common.seed)?;
     say("report");
     let report = a.out.join("report");
     run_args(quiet(vec!["report".into(), s(&a.out), "--out".into(), s(&report)]))?;
@@ -100,6 +135,18 @@ pub fn run(a: &DemoArgs) -> Result<()> {
     )?;
     record.timings = vec![("total".into(), t0.elapsed().as_secs_f64())];
     out.write_json("run.json", &record)?;
+    for r in &truth {
+        println!(
+            "cell {}: top first-layer unit {}:{} is closest to the planted {} pathway (filter r = {:.2}, sign {}){}",
+            r.cell,
+            r.unit_layer,
+            r.unit_channel,
+            crate::demo::planted::PATHWAYS[r.matched_channel],
+            r.filter_correlation,
+            if r.sign_matches { "right" } else { "wrong" },
+            if r.recovered { "" } else { ": not recovered" }
+        );
+    }
     println!(
         "demo results in {}; report: {} ({:.0} s)",
         a.out.display(),

@@ -34,8 +34,11 @@ pub struct DemoModelsArgs {
     /// The objective.
     #[arg(long, value_enum, default_value_t = FitSettings::default().loss)]
     pub loss: crate::demo::train::Loss,
+    /// Windows per Adam step.
+    #[arg(long, default_value_t = FitSettings::default().batch)]
+    pub batch: usize,
     /// Channels of the two convolutions, e.g. 16,8.
-    #[arg(long, value_name = "C1,C2", value_parser = channels, default_value = "8,8")]
+    #[arg(long, value_name = "C1,C2", value_parser = channels, default_value = "16,8")]
     pub channels: (usize, usize),
 }
 
@@ -59,6 +62,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             lr: a.lr,
             loss: a.loss,
             channels: a.channels,
+            batch: a.batch.max(1),
             ..Default::default()
         };
         let (model, report) = fit(&settings, &|e| {

@@ -4,6 +4,7 @@
 pub mod fit;
 pub mod movies;
 pub mod planted;
+pub mod recovered;
 pub mod train;
 
 use crate::output::OutputDir;

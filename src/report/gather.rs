@@ -23,6 +23,9 @@ pub enum Kind {
     Reduction,
     /// `knockout`: knockouts.json.
     Knockouts,
+    /// `demo`: ground_truth.json, the recovered-vs-planted comparison of a model whose
+    /// mechanisms are known.
+    GroundTruth,
 }
 
 impl Kind {
@@ -34,10 +37,12 @@ impl Kind {
             Kind::Attribution => "attribution.json",
             Kind::Reduction => "subcircuit.json",
             Kind::Knockouts => "knockouts.json",
+            Kind::GroundTruth => "ground_truth.json",
         }
     }
 
-    const ALL: [Kind; 5] = [Kind::Stimulus, Kind::Responses, Kind::Attribution, Kind::Reduction, Kind::Knockouts];
+    const ALL: [Kind; 6] =
+        [Kind::Stimulus, Kind::Responses, Kind::Attribution, Kind::Reduction, Kind::Knockouts, Kind::GroundTruth];
 }
 
 /// One results folder.

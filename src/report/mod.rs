@@ -6,6 +6,7 @@ pub mod doc;
 pub mod figures;
 pub mod findings;
 pub mod gather;
+pub mod ground_truth;
 pub mod sections;
 
 use crate::output::OutputDir;
@@ -145,6 +146,10 @@ pub fn compose(g: &Gathered) -> Result<(Vec<Block>, Vec<Finding>)> {
                 })
                 .collect::<Result<_>>()?;
             blocks.extend(parts.into_iter().flatten());
+        }
+
+        for (i, f) in folders.iter().filter(|f| f.kind == Kind::GroundTruth).enumerate() {
+            blocks.extend(ground_truth::section(&numbered(&format!("{p}-recovered"), i), f)?);
         }
 
         blocks.push(Block::Heading { level: 2, id: format!("{p}-settings"), text: "Run settings".into() });

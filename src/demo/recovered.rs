@@ -1,0 +1,174 @@
+//! Recovered vs planted: for each demo cell, what sufficit's reduction found in a model next to
+//! the pathways planted in the synthetic sensor. The top-ranked first-layer unit of the cell's
+//! subcircuit (largest |conductance|) is matched to the planted pathway whose filter it
+//! resembles most: the correlation of the two temporal filters (each the rank-one part of its
+//! spatiotemporal kernel, signed so the spatial map's peak is positive, so an OFF filter is the
+//! negative of an ON one) and whether the unit's sign on the cell is the planted sign.
+
+use super::planted::{kernel, PATHWAYS};
+use crate::reduction::filters::separate;
+use crate::response::measure::correlation;
+use crate::{Error, Result};
+use serde::Serialize;
+use serde_json::Value;
+use std::path::Path;
+
+/// The planted pathways of each cell (by output index): first-layer channel and its sign on
+/// the cell (true = excitatory). See `planted.rs` for how each is built.
+pub const PLANTED: [&[(usize, bool)]; 3] = [
+    // Resonant excitation, fast ON inhibition.
+    &[(2, true), (3, false)],
+    // Each direction's pool excites, its delayed copy inhibits.
+    &[(4, true), (5, false), (6, true), (7, false)],
+    // ON and OFF subunits, both excitatory in the centre.
+    &[(0, true), (1, true)],
+];
+
+/// A filter correlation at or above this counts as recovered (issue criterion).
+pub const RECOVERED_R: f64 = 0.8;
+
+/// One planted pathway as the comparison shows it.
+#[derive(Debug, Clone, Serialize)]
+pub struct PlantedPathway {
+    /// First-layer channel in the planted model.
+    pub channel: usize,
+    /// Its name.
+    pub name: &'static str,
+    /// "excitatory" or "inhibitory" on the cell.
+    pub sign: &'static str,
+    /// Correlation of its temporal filter with the recovered unit's.
+    pub filter_correlation: f64,
+}
+
+/// One cell's comparison.
+#[derive(Debug, Clone, Serialize)]
+pub struct Recovery {
+    /// Cell (output index).
+    pub cell: usize,
+    /// The cell's planted pathways, each with its filter's correlation to the recovered unit's.
+    pub planted: Vec<PlantedPathway>,
+    /// The recovered unit: layer and channel of the model.
+    pub unit_layer: String,
+    /// Channel of the recovered unit.
+    pub unit_channel: u64,
+    /// Its conductance on the cell's response.
+    pub unit_conductance: f64,
+    /// Its sign on the cell.
+    pub unit_sign: String,
+    /// Its temporal filter (oldest lag first).
+    pub unit_temporal: Vec<f32>,
+    /// The best-matching planted pathway's channel.
+    pub matched_channel: usize,
+    /// The best-matching planted pathway's temporal filter (oldest lag first).
+    pub matched_temporal: Vec<f32>,
+    /// The correlation of the two filters.
+    pub filter_correlation: f64,
+    /// Whether the unit's sign on the cell is the matched pathway's.
+    pub sign_matches: bool,
+    /// `filter_correlation >= RECOVERED_R` and the sign matches.
+    pub recovered: bool,
+}
+
+/// The rank-one temporal filter of planted pathway `p` (same normalisation as the reduction's).
+pub fn planted_temporal(p: usize) -> Vec<f32> {
+    separate(kernel(p)).temporal
+}
+
+fn sign_word(excitatory: bool) -> &'static str {
+    if excitatory {
+        "excitatory"
+    } else {
+        "inhibitory"
+    }
+}
+
+/// Compare a reduction (`subcircuit.json` of `cell`, read from `path` for messages) with the
+/// planted pathways of that cell.
+pub fn compare(cell: usize, subcircuit: &Value, path: &Path) -> Result<Recovery> {
+    let planted = PLANTED.get(cell).ok_or_else(|| Error::input(path, format!("cell {cell} is not a demo cell")))?;
+    let units = subcircuit["units"].as_array().ok_or_else(|| Error::input(path, "has no 'units' list"))?;
+    // First-layer units carry their convolution kernel.
+    let top = units
+        .iter()
+        .filter(|u| u["kernel"].is_object())
+        .max_by(|a, b| {
+            let c = |u: &Value| u["conductance"].as_f64().unwrap_or(0.0).abs();
+            c(a).total_cmp(&c(b))
+        })
+        .ok_or_else(|| Error::input(path, "keeps no first-layer unit: nothing to compare with the planted pathways"))?;
+    let temporal: Vec<f32> = top["kernel"]["temporal"]
+        .as_array()
+        .ok_or_else(|| Error::input(path, "a unit's kernel has no temporal filter"))?
+        .iter()
+        .map(|v| v.as_f64().unwrap_or(f64::NAN) as f32)
+        .collect();
+    let as64 = |v: &[f32]| v.iter().map(|&x| x as f64).collect::<Vec<_>>();
+    let pathways: Vec<PlantedPathway> = planted
+        .iter()
+        .map(|&(p, excitatory)| PlantedPathway {
+            channel: p,
+            name: PATHWAYS[p],
+            sign: sign_word(excitatory),
+            filter_correlation: correlation(&as64(&planted_temporal(p)), &as64(&temporal)),
+        })
+        .collect();
+    let best = pathways
+        .iter()
+        .max_by(|a, b| a.filter_correlation.total_cmp(&b.filter_correlation))
+        .ok_or_else(|| Error::input(path, "no planted pathway"))?;
+    let unit_sign = top["sign"].as_str().unwrap_or("").to_string();
+    let sign_matches = unit_sign == best.sign;
+    Ok(Recovery {
+        cell,
+        unit_layer: top["layer"].as_str().unwrap_or("").to_string(),
+        unit_channel: top["channel"].as_u64().unwrap_or(0),
+        unit_conductance: top["conductance"].as_f64().unwrap_or(f64::NAN),
+        unit_sign,
+        unit_temporal: temporal,
+        matched_channel: best.channel,
+        matched_temporal: planted_temporal(best.channel),
+        filter_correlation: best.filter_correlation,
+        sign_matches,
+        recovered: best.filter_correlation >= RECOVERED_R && sign_matches,
+        planted: pathways.clone(),
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use serde_json::json;
+
+    fn unit(channel: usize, conductance: f64, sign: &str, temporal: Vec<f32>) -> Value {
+        json!({"layer": "layer1", "channel": channel, "conductance": conductance, "sign": sign,
+               "kernel": {"temporal": temporal, "rank_one_share": 1.0}})
+    }
+
+    #[test]
+    fn the_top_unit_is_matched_by_filter_and_judged_by_sign() {
+        // Cell 0's top unit carries the resonant filter but the wrong sign; a weaker unit and a
+        // second-layer unit (no kernel) are ignored.
+        let resonant = planted_temporal(2);
+        let sub = json!({"units": [
+            unit(5, -0.2, "excitatory", planted_temporal(3)),
+            unit(7, 0.9, "inhibitory", resonant.clone()),
+            {"layer": "layer2", "channel": 0, "conductance": 5.0, "sign": "excitatory", "kernel": null},
+        ]});
+        let r = compare(0, &sub, Path::new("subcircuit.json")).unwrap();
+        assert_eq!((r.unit_channel, r.matched_channel), (7, 2));
+        assert!((r.filter_correlation - 1.0).abs() < 1e-9);
+        assert!(!r.sign_matches && !r.recovered);
+        // The OFF subunit's filter is the ON one negated: an ON-like unit matches pathway 0.
+        let on =
+            compare(2, &json!({"units": [unit(1, 0.5, "excitatory", planted_temporal(0))]}), Path::new("s")).unwrap();
+        assert_eq!(on.matched_channel, 0);
+        assert!(on.recovered);
+        assert!((on.planted[1].filter_correlation + 1.0).abs() < 1e-6);
+    }
+
+    #[test]
+    fn a_subcircuit_without_first_layer_units_is_an_error_naming_the_file() {
+        let e = compare(1, &json!({"units": []}), Path::new("cell-1/subcircuit.json")).unwrap_err();
+        assert!(e.to_string().contains("cell-1/subcircuit.json") && e.to_string().contains("first-layer"), "{e}");
+    }
+}
