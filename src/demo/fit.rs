@@ -194,10 +194,8 @@ impl Student {
             let tape = model.graph.forward(x.clone(), &[])?;
             let v = tape.value(id);
             for c in 0..v.shape()[1] {
-                let lane = v.index_axis(Axis(1), c);
-                let n = lane.len().max(1) as f64;
-                let mean = lane.iter().map(|&a| a as f64).sum::<f64>() / n;
-                let sd = (lane.iter().map(|&a| (a as f64 - mean).powi(2)).sum::<f64>() / n).sqrt();
+                let (mean, var) = moments(v.index_axis(Axis(1), c).iter().copied());
+                let sd = var.sqrt();
                 if sd > 0.0 {
                     let k = (INIT_SD / sd) as f32;
                     self.factors[factor].index_axis_mut(Axis(0), c).mapv_inplace(|w| w * k);
@@ -288,7 +286,7 @@ fn dataset(planted: &Model, frames: usize, seed: u64) -> Result<Vec<(Array3<f32>
 /// 1 / its mean rate for the Poisson deviance (which grows with the rate). Either way every cell
 /// counts about equally, whatever its firing rate.
 fn cell_weights(loss: Loss, data: &[(Array3<f32>, Array2<f32>)]) -> Vec<f32> {
-    mean_and_variance(data)
+    cell_moments(data)
         .into_iter()
         .map(|(m, var)| {
             let scale = match loss {
@@ -301,16 +299,16 @@ fn cell_weights(loss: Loss, data: &[(Array3<f32>, Array2<f32>)]) -> Vec<f32> {
 }
 
 /// Each cell's mean rate and variance over all of `data`.
-fn mean_and_variance(data: &[(Array3<f32>, Array2<f32>)]) -> Vec<(f64, f64)> {
-    (0..CELLS)
-        .map(|c| {
-            let v: Vec<f64> =
-                data.iter().flat_map(|(_, r)| r.column(c).iter().map(|&x| x as f64).collect::<Vec<_>>()).collect();
-            let m = v.iter().sum::<f64>() / v.len().max(1) as f64;
-            let var = v.iter().map(|x| (x - m).powi(2)).sum::<f64>() / v.len().max(1) as f64;
-            (m, var)
-        })
-        .collect()
+fn cell_moments(data: &[(Array3<f32>, Array2<f32>)]) -> Vec<(f64, f64)> {
+    (0..CELLS).map(|c| moments(data.iter().flat_map(|(_, r)| r.column(c).to_vec()))).collect()
+}
+
+/// Mean and (population) variance of `values`, accumulated in f64.
+fn moments(values: impl IntoIterator<Item = f32>) -> (f64, f64) {
+    let v: Vec<f64> = values.into_iter().map(f64::from).collect();
+    let n = v.len().max(1) as f64;
+    let mean = v.iter().sum::<f64>() / n;
+    (mean, v.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / n)
 }
 
 /// `n` windows drawn at random from `data` (all movie kinds), as one model input.
@@ -440,7 +438,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     let heldout = dataset(&teacher, s.heldout_frames, s.seed.wrapping_mul(1000) + 500)?;
     let calibration = dataset(&teacher, s.train_frames.max(4000), s.seed.wrapping_mul(1000) + 700)?;
     let weights = cell_weights(s.loss, &calibration);
-    let means: Vec<f32> = mean_and_variance(&calibration).iter().map(|&(m, _)| m as f32).collect();
+    let means: Vec<f32> = cell_moments(&calibration).iter().map(|&(m, _)| m as f32).collect();
     let mut student = Student::init(s, &means, &mut rng);
     student.scale_to_data(&sample_windows(&calibration, 96, &mut rng)?)?;
     let mut model = Model::from_proto(student.training_proto(), Path::new("fitted.onnx"), &LoadOptions::default())?;
@@ -568,9 +566,8 @@ mod tests {
         for layer in ["conv1", "conv2"] {
             let v = tape.value(model.graph.find(layer).unwrap());
             for c in 0..v.shape()[1] {
-                let lane: Vec<f64> = v.index_axis(Axis(1), c).iter().map(|&a| a as f64).collect();
-                let mean = lane.iter().sum::<f64>() / lane.len() as f64;
-                let sd = (lane.iter().map(|a| (a - mean).powi(2)).sum::<f64>() / lane.len() as f64).sqrt();
+                let (mean, var) = moments(v.index_axis(Axis(1), c).iter().copied());
+                let sd = var.sqrt();
                 // conv2 is scaled after conv1, so both hold exactly on these windows.
                 assert!(mean.abs() < 1e-3 && (sd - INIT_SD).abs() < 1e-3, "{layer}:{c}: mean {mean} sd {sd}");
             }

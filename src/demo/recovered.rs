@@ -103,21 +103,24 @@ pub fn compare(cell: usize, subcircuit: &Value, path: &Path) -> Result<Recovery>
         .map(|v| v.as_f64().unwrap_or(f64::NAN) as f32)
         .collect();
     let as64 = |v: &[f32]| v.iter().map(|&x| x as f64).collect::<Vec<_>>();
+    let mut filters: Vec<Vec<f32>> = planted.iter().map(|&(p, _)| planted_temporal(p)).collect();
     let pathways: Vec<PlantedPathway> = planted
         .iter()
-        .map(|&(p, excitatory)| PlantedPathway {
+        .zip(&filters)
+        .map(|(&(p, excitatory), filter)| PlantedPathway {
             channel: p,
             name: PATHWAYS[p],
             sign: sign_word(excitatory),
-            filter_correlation: correlation(&as64(&planted_temporal(p)), &as64(&temporal)),
+            filter_correlation: correlation(&as64(filter), &as64(&temporal)),
         })
         .collect();
-    let best = pathways
-        .iter()
-        .max_by(|a, b| a.filter_correlation.total_cmp(&b.filter_correlation))
+    let best = (0..pathways.len())
+        .max_by(|&a, &b| pathways[a].filter_correlation.total_cmp(&pathways[b].filter_correlation))
         .ok_or_else(|| Error::input(path, "no planted pathway"))?;
+    let (matched_channel, matched_sign, filter_correlation) =
+        (pathways[best].channel, pathways[best].sign, pathways[best].filter_correlation);
     let unit_sign = top["sign"].as_str().unwrap_or("").to_string();
-    let sign_matches = unit_sign == best.sign;
+    let sign_matches = unit_sign == matched_sign;
     Ok(Recovery {
         cell,
         unit_layer: top["layer"].as_str().unwrap_or("").to_string(),
@@ -125,12 +128,12 @@ pub fn compare(cell: usize, subcircuit: &Value, path: &Path) -> Result<Recovery>
         unit_conductance: top["conductance"].as_f64().unwrap_or(f64::NAN),
         unit_sign,
         unit_temporal: temporal,
-        matched_channel: best.channel,
-        matched_temporal: planted_temporal(best.channel),
-        filter_correlation: best.filter_correlation,
+        matched_channel,
+        matched_temporal: filters.swap_remove(best),
+        filter_correlation,
         sign_matches,
-        recovered: best.filter_correlation >= RECOVERED_R && sign_matches,
-        planted: pathways.clone(),
+        recovered: filter_correlation >= RECOVERED_R && sign_matches,
+        planted: pathways,
     })
 }
 
