@@ -3,7 +3,9 @@
 Diagnoses why fitting the demo CNN is hard: prints each cell's mean, standard deviation and
 kurtosis of the rate under 2-pixel binary noise (new pattern every frame, full contrast) and the
 mean, standard deviation and maximum under full-field flicker: slow (100 ms holds) and, like the
-fit's training flicker, Gaussian values held 1 to 5 frames at s.d. 0.35 and 0.12. Heavy tails
+fit's training flicker, Gaussian values held 1 to 5 frames at s.d. 0.35 and 0.12; and how often
+the reversal cell fires under a pink (1/f) texture that moves steadily and reverses now and then
+(a replica of `movies::reversing_texture`) at three contrasts. Heavy tails
 (kurtosis >> 3, maxima far above the s.d.) mean a rate loss is dominated by rare bursts.
 
     python3 scripts/planted_response_statistics.py    # needs numpy and onnxruntime
@@ -21,6 +23,40 @@ def rates(session, movie):
     name = session.get_inputs()[0].name
     parts = [session.run(None, {name: windows[i : i + 64]})[0] for i in range(0, len(windows), 64)]
     return np.concatenate(parts).reshape(len(windows), -1)
+
+
+def pink_image(size, rms, rng):
+    """1/f amplitude spectrum, random phases, scaled to RMS contrast `rms`, clipped to -1..1."""
+    f = np.fft.fftfreq(size) * size
+    fy, fx = np.meshgrid(f, f, indexing="ij")
+    radius = np.hypot(fy, fx)
+    radius[0, 0] = np.inf
+    image = np.real(np.fft.ifft2(np.exp(1j * rng.uniform(0, 2 * np.pi, (size, size))) / radius))
+    return np.clip((image - image.mean()) / image.std() * rms, -1, 1)
+
+
+def reversing_texture(frames, rms, rng, size=256):
+    """A 50 x 50 view of a periodic pink image moving at 0.1-0.4 pixels per frame in any
+    direction; every 15-60 frames the motion reverses (probability 0.7) or takes a new velocity."""
+    image = pink_image(size, rms, rng)
+
+    def velocity():
+        speed, angle = rng.uniform(0.1, 0.4), rng.uniform(0, 2 * np.pi)
+        return np.array([speed * np.sin(angle), speed * np.cos(angle)])
+
+    pos, v, left = rng.uniform(0, size, 2), velocity(), rng.integers(15, 61)
+    movie = np.zeros((frames, 50, 50), np.float32)
+    rows = np.arange(50)
+    for t in range(frames):
+        if left == 0:
+            v = -v if rng.uniform() < 0.7 else velocity()
+            left = rng.integers(15, 61)
+        left -= 1
+        pos = (pos + v) % size
+        (y0, x0), (fy, fx) = np.floor(pos).astype(int), pos - np.floor(pos)
+        at = lambda dy, dx: image[np.ix_((rows + y0 + dy) % size, (rows + x0 + dx) % size)]
+        movie[t] = (1 - fy) * ((1 - fx) * at(0, 0) + fx * at(0, 1)) + fy * ((1 - fx) * at(1, 0) + fx * at(1, 1))
+    return movie
 
 
 def main():
@@ -43,6 +79,9 @@ def main():
         movie = (trace[:, None, None] * np.ones((1, 50, 50))).astype(np.float32)
         for c, r in enumerate(rates(session, movie).T):
             print(f"flicker s.d. {sd} (1-5 frame holds), cell {c}: mean {r.mean():.3f} sd {r.std():.3f} max {r.max():.2f}")
+    for rms in [0.25, 0.35, 0.5]:
+        r = rates(session, reversing_texture(2000, rms, rng))[:, 1]
+        print(f"reversing texture RMS {rms}, cell 1: above 1 in {(r > 1).mean():.1%} of frames, max {r.max():.2f}")
     print(f"onnxruntime {ort.__version__}, numpy {np.__version__}")
 
 

@@ -19,9 +19,16 @@ pub struct DemoModelsArgs {
     /// Also fit the CNN to the planted model (minutes).
     #[arg(long)]
     pub fit: bool,
-    /// Training frames per movie kind.
+    /// Training frames per epoch of each of binary noise, flicker and naturalistic movie.
     #[arg(long, default_value_t = FitSettings::default().train_frames)]
     pub train_frames: usize,
+    /// Frames of reversing texture per epoch.
+    #[arg(long, default_value_t = FitSettings::default().reversal_frames)]
+    pub reversal_frames: usize,
+    /// Fraction of the epochs (0 to 1) after which the reversing texture joins the training
+    /// movies.
+    #[arg(long, value_parser = fraction, default_value_t = FitSettings::default().reversal_from)]
+    pub reversal_from: f64,
     /// Passes over the training windows.
     #[arg(long, default_value_t = FitSettings::default().epochs)]
     pub epochs: usize,
@@ -50,6 +57,14 @@ fn channels(s: &str) -> Result<(usize, usize), String> {
     }
 }
 
+/// Parse a fraction from 0 to 1.
+fn fraction(s: &str) -> Result<f64, String> {
+    match s.trim().parse::<f64>() {
+        Ok(f) if (0.0..=1.0).contains(&f) => Ok(f),
+        _ => Err(format!("'{s}': expected a fraction of the epochs from 0 to 1, such as 0.5")),
+    }
+}
+
 /// Write the models.
 pub fn run(a: &DemoModelsArgs) -> Result<()> {
     crate::demo::write_planted(&a.out)?;
@@ -58,6 +73,8 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
         let settings = FitSettings {
             seed: a.seed,
             train_frames: a.train_frames,
+            reversal_frames: a.reversal_frames,
+            reversal_from: a.reversal_from,
             epochs: a.epochs,
             lr: a.lr,
             loss: a.loss,
@@ -67,7 +84,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
         };
         let (model, report) = fit(&settings, &|e| {
             eprintln!(
-                "epoch {}: training loss {:.4}, per cell {:.3?}, held-out r {:.3?} (noise, flicker, scenes: {:.2?})",
+                "epoch {}: training loss {:.4}, per cell {:.3?}, held-out r {:.3?} (noise, flicker, scenes, reversing: {:.2?})",
                 e.number, e.loss, e.cell_loss, e.heldout_correlation, e.heldout_by_kind
             )
         })?;
@@ -85,4 +102,21 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
         );
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn fit_options_are_checked_with_a_message_that_says_what_was_expected() {
+        assert_eq!(fraction("0.5"), Ok(0.5));
+        assert_eq!(fraction("1"), Ok(1.0));
+        for bad in ["1.5", "-0.1", "half"] {
+            assert!(fraction(bad).unwrap_err().contains("fraction of the epochs from 0 to 1"), "{bad}");
+        }
+        assert_eq!(channels("16, 8"), Ok((16, 8)));
+        assert!(channels("16").unwrap_err().contains("two positive channel counts"));
+        assert!(channels("0,8").is_err());
+    }
 }

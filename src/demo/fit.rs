@@ -2,7 +2,7 @@
 //! trained with the engine's gradients and Adam on the planted sensor's responses to white noise
 //! and naturalistic movies, and judged on held-out movies. Reproducible from its seed.
 
-use super::movies::{binary_noise, full_field_flicker, naturalistic};
+use super::movies::{binary_noise, full_field_flicker, naturalistic, reversing_texture};
 use super::planted::{synthetic_sensor, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
 use crate::model::builder::{int_attr, OnnxBuilder};
@@ -27,6 +27,13 @@ pub struct FitSettings {
     /// Frames of each training movie kind (binary noise; full-field flicker; naturalistic),
     /// fresh every epoch.
     pub train_frames: usize,
+    /// Frames of reversing texture per epoch (0: none). The texture reverses its motion now and
+    /// then, which drives the reversal cell (rarely, in bursts); off by default until a fit
+    /// learns from it (docs/performance.md, session 6).
+    pub reversal_frames: usize,
+    /// Fraction of the epochs after which the reversing texture joins the training movies (a
+    /// curriculum: the network first learns what the other movies teach).
+    pub reversal_from: f64,
     /// Frames of each held-out movie kind.
     pub heldout_frames: usize,
     /// Passes over the training windows.
@@ -51,6 +58,8 @@ impl Default for FitSettings {
         FitSettings {
             seed: 1,
             train_frames: 2000,
+            reversal_frames: 0,
+            reversal_from: 0.0,
             heldout_frames: 1000,
             epochs: 30,
             batch: 16,
@@ -257,8 +266,10 @@ fn planted() -> Result<Model> {
     Model::from_proto(synthetic_sensor(), Path::new("synthetic-sensor-planted.onnx"), &LoadOptions::default())
 }
 
-/// Movies and the planted sensor's rates on them, `frames` each, seeded: binary noise (100 um
-/// checkers), full-field flicker (holds of 10 to 50 ms) and a naturalistic movie.
+/// Movies and the planted sensor's rates on them, seeded: `frames` each of binary noise (100 um
+/// checkers), full-field flicker (holds of 10 to 50 ms) and a naturalistic movie, and
+/// `reversal_frames` (if any) of a texture that reverses its motion now and then (the reversal
+/// cell is told apart from a motion detector only by such movies).
 ///
 /// The flicker's contrast is low (s.d. [`FLICKER_SD`]): measured with onnxruntime on the planted
 /// sensor (`scripts/planted_response_statistics.py` and a second draw), flicker of s.d. 0.35
@@ -266,12 +277,21 @@ fn planted() -> Result<Model> {
 /// once (its maximum was 6.4 in one 1,500-frame sample, 161 in another), and such rare bursts
 /// dominate any rate loss; at s.d. 0.12 only the omitted-flash cell responds (s.d. 0.70), which
 /// is what the flicker is for.
-fn dataset(planted: &Model, frames: usize, seed: u64) -> Result<Vec<(Array3<f32>, Array2<f32>)>> {
-    let movies = [
+fn dataset(
+    planted: &Model,
+    frames: usize,
+    reversal_frames: usize,
+    seed: u64,
+) -> Result<Vec<(Array3<f32>, Array2<f32>)>> {
+    let mut movies = vec![
         binary_noise(frames, SIZE, SIZE, 2, 1.0, seed),
         full_field_flicker(frames, SIZE, SIZE, FLICKER_SD, 5, seed + 1),
         naturalistic(frames, SIZE, SIZE, seed + 2),
     ];
+    if reversal_frames > 0 {
+        // Its own seed stream: seed + 3 is the next epoch's noise seed.
+        movies.push(reversing_texture(reversal_frames.max(LAGS), SIZE, SIZE, seed.wrapping_add(1 << 32)));
+    }
     movies
         .into_iter()
         .map(|m| {
@@ -283,15 +303,17 @@ fn dataset(planted: &Model, frames: usize, seed: u64) -> Result<Vec<(Array3<f32>
 
 /// Each cell's loss weight from a large calibration sample (fixed for the whole fit, so a bursty
 /// cell's weight does not swing with each epoch's movies): 1 / its variance for squared error,
-/// 1 / its mean rate for the Poisson deviance (which grows with the rate). Either way every cell
-/// counts about equally, whatever its firing rate.
+/// 1 / its mean rate for the Poisson deviance (which grows with the rate), 1 / the variance of
+/// its square-root rate for the squared error of square roots. Either way every cell counts
+/// about equally, whatever its firing rate.
 fn cell_weights(loss: Loss, data: &[(Array3<f32>, Array2<f32>)]) -> Vec<f32> {
-    cell_moments(data)
-        .into_iter()
-        .map(|(m, var)| {
+    (0..CELLS)
+        .map(|c| {
+            let rates = || data.iter().flat_map(move |(_, r)| r.column(c).to_vec());
             let scale = match loss {
-                Loss::WeightedMse => var,
-                Loss::Poisson => m,
+                Loss::WeightedMse => moments(rates()).1,
+                Loss::Poisson => moments(rates()).0,
+                Loss::RootMse => moments(rates().map(|v| v.max(0.0).sqrt())).1,
             };
             (1.0 / scale.max(1e-6)) as f32
         })
@@ -424,7 +446,8 @@ pub struct Epoch {
     pub cell_loss: Vec<f64>,
     /// Held-out correlation per cell after the epoch.
     pub heldout_correlation: Vec<f64>,
-    /// The same for each held-out movie kind alone (binary noise, flicker, naturalistic).
+    /// The same for each held-out movie kind alone (binary noise, flicker, naturalistic,
+    /// reversing texture: always held out, whether or not it is trained on).
     pub heldout_by_kind: Vec<Vec<f64>>,
 }
 
@@ -435,8 +458,12 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     let t0 = Instant::now();
     let teacher = planted()?;
     let mut rng = ChaCha8Rng::seed_from_u64(s.seed);
-    let heldout = dataset(&teacher, s.heldout_frames, s.seed.wrapping_mul(1000) + 500)?;
-    let calibration = dataset(&teacher, s.train_frames.max(4000), s.seed.wrapping_mul(1000) + 700)?;
+    let heldout = dataset(&teacher, s.heldout_frames, s.heldout_frames, s.seed.wrapping_mul(1000) + 500)?;
+    // Calibrated on what will be trained on (without the texture, a fit reproduces the runs made
+    // before it existed, e.g. run F).
+    let calibration_reversal = if s.reversal_frames > 0 { s.reversal_frames.max(1000) } else { 0 };
+    let calibration =
+        dataset(&teacher, s.train_frames.max(4000), calibration_reversal, s.seed.wrapping_mul(1000) + 700)?;
     let weights = cell_weights(s.loss, &calibration);
     let means: Vec<f32> = cell_moments(&calibration).iter().map(|&(m, _)| m as f32).collect();
     let mut student = Student::init(s, &means, &mut rng);
@@ -454,7 +481,8 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         if epoch as f64 >= s.decay_after * s.epochs as f64 {
             adam.lr = s.lr / 5.0;
         }
-        let train = dataset(&teacher, s.train_frames, s.seed.wrapping_mul(1000) + 10 + 3 * epoch as u64)?;
+        let reversal = if epoch as f64 >= s.reversal_from * s.epochs as f64 { s.reversal_frames } else { 0 };
+        let train = dataset(&teacher, s.train_frames, reversal, s.seed.wrapping_mul(1000) + 10 + 3 * epoch as u64)?;
         let mut windows: Vec<(usize, usize)> =
             train.iter().enumerate().flat_map(|(i, (m, _))| (LAGS - 1..m.shape()[0]).map(move |t| (i, t))).collect();
         windows.shuffle(&mut rng);

@@ -86,17 +86,51 @@ pub fn naturalistic(frames: usize, height: usize, width: usize, seed: u64) -> Ar
         vx = decay * vx + kick * nx;
         y = (y + vy).rem_euclid(size as f64);
         x = (x + vx).rem_euclid(size as f64);
-        // Bilinear interpolation at the sub-pixel position.
-        let (y0, x0) = (y.floor(), x.floor());
-        let (fy, fx) = ((y - y0) as f32, (x - x0) as f32);
-        let at = |yy: usize, xx: usize| image[[yy % size, xx % size]];
-        for r in 0..height {
-            for c in 0..width {
-                let (yy, xx) = (y0 as usize + r, x0 as usize + c);
-                movie[[t, r, c]] = (1.0 - fy) * ((1.0 - fx) * at(yy, xx) + fx * at(yy, xx + 1))
-                    + fy * ((1.0 - fx) * at(yy + 1, xx) + fx * at(yy + 1, xx + 1));
-            }
+        render(&image, (y, x), movie.index_axis_mut(ndarray::Axis(0), t));
+    }
+    movie
+}
+
+/// Fill `frame` with the view of the periodic `image` whose top-left corner is at the sub-pixel
+/// position `(y, x)` (bilinear interpolation).
+fn render(image: &Array2<f32>, (y, x): (f64, f64), mut frame: ndarray::ArrayViewMut2<f32>) {
+    let size = image.nrows();
+    let (y0, x0) = (y.floor(), x.floor());
+    let (fy, fx) = ((y - y0) as f32, (x - x0) as f32);
+    let at = |yy: usize, xx: usize| image[[yy % size, xx % size]];
+    for ((r, c), v) in frame.indexed_iter_mut() {
+        let (yy, xx) = (y0 as usize + r, x0 as usize + c);
+        *v = (1.0 - fy) * ((1.0 - fx) * at(yy, xx) + fx * at(yy, xx + 1))
+            + fy * ((1.0 - fx) * at(yy + 1, xx) + fx * at(yy + 1, xx + 1));
+    }
+}
+
+/// A pink texture in steady motion that now and then reverses abruptly `[frames, height,
+/// width]`: each segment lasts 15 to 60 frames at a constant velocity (0.1 to 0.4 pixels per
+/// frame, any direction); at a segment's end the motion reverses (probability 0.7) or takes a
+/// new random velocity. Smooth drift (see [`naturalistic`]) never holds a velocity long enough
+/// for a cell that answers changes of motion to be told apart from one that answers motion.
+pub fn reversing_texture(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let size = 4 * height.max(width).next_power_of_two();
+    let image = pink_image(size, 0.35, &mut rng);
+    let velocity = |rng: &mut ChaCha8Rng| {
+        let (speed, angle) = (rng.random_range(0.1..0.4), rng.random_range(0.0..std::f64::consts::TAU));
+        (speed * angle.sin(), speed * angle.cos())
+    };
+    let (mut y, mut x) = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
+    let mut v = velocity(&mut rng);
+    let mut left = rng.random_range(15..=60);
+    let mut movie = Array3::zeros((frames, height, width));
+    for t in 0..frames {
+        if left == 0 {
+            v = if rng.random_range(0.0..1.0) < 0.7 { (-v.0, -v.1) } else { velocity(&mut rng) };
+            left = rng.random_range(15..=60);
         }
+        left -= 1;
+        y = (y + v.0).rem_euclid(size as f64);
+        x = (x + v.1).rem_euclid(size as f64);
+        render(&image, (y, x), movie.index_axis_mut(ndarray::Axis(0), t));
     }
     movie
 }
@@ -229,5 +263,20 @@ mod tests {
         assert!((150..=250).contains(&changes), "{changes} changes");
         let sd = (m.iter().map(|v| v * v).sum::<f32>() / m.len() as f32).sqrt();
         assert!((sd - 0.35).abs() < 0.06, "s.d. {sd}");
+    }
+
+    #[test]
+    fn reversing_texture_retraces_its_path_after_a_reversal() {
+        // At a reversal the view runs back over the frames it just showed: frame t + k equals
+        // frame t - k. Find such a t, and check the texture does move.
+        let m = reversing_texture(400, 12, 12, 5);
+        let diff = |a: usize, b: usize| {
+            (&m.index_axis(ndarray::Axis(0), a) - &m.index_axis(ndarray::Axis(0), b))
+                .mapv(f32::abs)
+                .fold(0.0f32, |x, &y| x.max(y))
+        };
+        assert!(diff(0, 10) > 0.05, "the texture does not move");
+        let reversals = (12..388).filter(|&t| (1..=10).all(|k| diff(t + k, t - k) < 1e-3)).count();
+        assert!(reversals >= 2, "{reversals} reversals in 400 frames");
     }
 }
