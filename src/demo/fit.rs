@@ -309,20 +309,24 @@ fn dataset(
 fn cell_weights(loss: Loss, data: &[(Array3<f32>, Array2<f32>)]) -> Vec<f32> {
     (0..CELLS)
         .map(|c| {
-            let rates = || data.iter().flat_map(move |(_, r)| r.column(c).to_vec());
             let scale = match loss {
-                Loss::WeightedMse => moments(rates()).1,
-                Loss::Poisson => moments(rates()).0,
-                Loss::RootMse => moments(rates().map(|v| v.max(0.0).sqrt())).1,
+                Loss::WeightedMse => moments(cell_rates(data, c)).1,
+                Loss::Poisson => moments(cell_rates(data, c)).0,
+                Loss::RootMse => moments(cell_rates(data, c).map(|v| v.max(0.0).sqrt())).1,
             };
             (1.0 / scale.max(1e-6)) as f32
         })
         .collect()
 }
 
+/// Cell `c`'s rates over all of `data`.
+fn cell_rates(data: &[(Array3<f32>, Array2<f32>)], c: usize) -> impl Iterator<Item = f32> + '_ {
+    data.iter().flat_map(move |(_, r)| r.column(c).to_vec())
+}
+
 /// Each cell's mean rate and variance over all of `data`.
 fn cell_moments(data: &[(Array3<f32>, Array2<f32>)]) -> Vec<(f64, f64)> {
-    (0..CELLS).map(|c| moments(data.iter().flat_map(|(_, r)| r.column(c).to_vec()))).collect()
+    (0..CELLS).map(|c| moments(cell_rates(data, c))).collect()
 }
 
 /// Mean and (population) variance of `values`, accumulated in f64.
