@@ -46,17 +46,23 @@ def reversing_texture(frames, rms, rng, size=256):
 
     pos, v, left = rng.uniform(0, size, 2), velocity(), rng.integers(15, 61)
     movie = np.zeros((frames, 50, 50), np.float32)
-    rows = np.arange(50)
     for t in range(frames):
         if left == 0:
             v = -v if rng.uniform() < 0.7 else velocity()
             left = rng.integers(15, 61)
         left -= 1
         pos = (pos + v) % size
-        (y0, x0), (fy, fx) = np.floor(pos).astype(int), pos - np.floor(pos)
-        at = lambda dy, dx: image[np.ix_((rows + y0 + dy) % size, (rows + x0 + dx) % size)]
-        movie[t] = (1 - fy) * ((1 - fx) * at(0, 0) + fx * at(0, 1)) + fy * ((1 - fx) * at(1, 0) + fx * at(1, 1))
+        movie[t] = view(image, pos)
     return movie
+
+
+def view(image, pos):
+    """The 50 x 50 view of the periodic `image` whose top-left corner is at the sub-pixel
+    position `pos` (bilinear interpolation, as `movies::render`)."""
+    size, rows = len(image), np.arange(50)
+    (y0, x0), (fy, fx) = np.floor(pos).astype(int), pos - np.floor(pos)
+    at = lambda dy, dx: image[np.ix_((rows + y0 + dy) % size, (rows + x0 + dx) % size)]
+    return (1 - fy) * ((1 - fx) * at(0, 0) + fx * at(0, 1)) + fy * ((1 - fx) * at(1, 0) + fx * at(1, 1))
 
 
 def main():

@@ -8,10 +8,10 @@
 //!   the two cancel; when a flash is left out, the ringing arrives uncancelled: a response
 //!   after the omitted flash.
 //! - cell 1, "reversal": two direction-selective pathways (space-time oriented filters, one per
-//!   direction), each pooled over a square and inhibited by an 80 ms delayed copy of itself. Under
-//!   steady motion each direction's pool and its delayed copy match and cancel; when the bar
-//!   reverses, the newly driven direction fires until its delayed copy catches up: a burst at the
-//!   reversal.
+//!   direction), each pooled over a square and inhibited by an 80 ms delayed copy of itself, with a
+//!   threshold. Under steady motion each direction's pool and its delayed copy match and cancel;
+//!   when the bar reverses, the newly driven direction fires until its delayed copy catches up: a
+//!   burst at the reversal.
 //! - cell 2, "object motion": the same subunit types, centre pool minus a surround pool (both
 //!   rectified, the difference rectified), after Olveczky, Baccus & Meister (Nature 2003):
 //!   global jitter drives centre and surround together and they cancel; differential motion
@@ -62,6 +62,13 @@ const DS_THRESHOLD: f32 = 4.0;
 
 /// Delay of the direction-selective pathways' inhibitory copies, ms.
 const DS_DELAY_MS: f64 = 80.0;
+
+/// Threshold of the reversal units (layer-2 bias, minus). A full-contrast bar in steady motion
+/// gives each pathway's pool a drive of about 2.6; with this threshold a delayed copy that is
+/// 25 % weaker or stronger than its pathway still leaves the unit silent, so the reversal
+/// response does not hinge on an exact cancellation (with no threshold a 10 % imbalance cuts
+/// the reversal / smooth ratio from 15 to 5.5: scripts/reversal_balance.py).
+const REVERSAL_THRESHOLD: f32 = 0.75;
 
 /// Names of the cells, by output index.
 pub const CELLS: [&str; 3] = ["resonant", "reversal", "object-motion"];
@@ -197,7 +204,9 @@ pub fn synthetic_sensor() -> ModelProto {
             w2[[3, sub, y, x]] -= 4.0 * v;
         }
     }
-    let b2 = Tensor::zeros(IxDyn(&[4]));
+    let mut b2 = Tensor::zeros(IxDyn(&[4]));
+    b2[[1]] = -REVERSAL_THRESHOLD;
+    b2[[2]] = -REVERSAL_THRESHOLD;
     // Readout: each cell reads its unit(s) at the four central positions of the 22 x 22 map.
     let s2 = SIZE - K1 + 1 - K2 + 1;
     let per = s2 * s2;
