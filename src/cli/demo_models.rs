@@ -1,7 +1,7 @@
 //! `sufficit demo-models --out models/ [--fit]` (hidden, for maintainers): write the planted
 //! demo model and, with `--fit`, train the fitted demo model on it.
 
-use crate::demo::fit::{fit, FitSettings};
+use crate::demo::fit::{fit, FitSettings, ReversalImage};
 use crate::output::OutputDir;
 use crate::Result;
 use clap::Args;
@@ -29,6 +29,9 @@ pub struct DemoModelsArgs {
     /// movies.
     #[arg(long, value_parser = fraction, default_value_t = FitSettings::default().reversal_from)]
     pub reversal_from: f64,
+    /// What the reversing movie moves: a pink texture or thin lines.
+    #[arg(long, value_enum, default_value_t = ReversalImage::Pink)]
+    pub reversal_image: ReversalImage,
     /// Passes over the training windows.
     #[arg(long, default_value_t = FitSettings::default().epochs)]
     pub epochs: usize,
@@ -75,6 +78,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             train_frames: a.train_frames,
             reversal_frames: a.reversal_frames,
             reversal_from: a.reversal_from,
+            reversal_image: a.reversal_image,
             epochs: a.epochs,
             lr: a.lr,
             loss: a.loss,

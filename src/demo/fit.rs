@@ -2,7 +2,7 @@
 //! trained with the engine's gradients and Adam on the planted sensor's responses to white noise
 //! and naturalistic movies, and judged on held-out movies. Reproducible from its seed.
 
-use super::movies::{binary_noise, full_field_flicker, naturalistic, reversing_texture};
+use super::movies::{binary_noise, full_field_flicker, naturalistic, reversing_lines, reversing_texture};
 use super::planted::{synthetic_sensor, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
 use crate::model::builder::{int_attr, OnnxBuilder};
@@ -34,6 +34,8 @@ pub struct FitSettings {
     /// Fraction of the epochs after which the reversing texture joins the training movies (a
     /// curriculum: the network first learns what the other movies teach).
     pub reversal_from: f64,
+    /// What the reversing movie shows (also in the held-out movies).
+    pub reversal_image: ReversalImage,
     /// Frames of each held-out movie kind.
     pub heldout_frames: usize,
     /// Passes over the training windows.
@@ -60,6 +62,7 @@ impl Default for FitSettings {
             train_frames: 2000,
             reversal_frames: 0,
             reversal_from: 0.0,
+            reversal_image: ReversalImage::Pink,
             heldout_frames: 1000,
             epochs: 30,
             batch: 16,
@@ -70,6 +73,16 @@ impl Default for FitSettings {
             decay_after: 0.7,
         }
     }
+}
+
+/// The image a reversing movie moves.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, clap::ValueEnum)]
+#[serde(rename_all = "kebab-case")]
+pub enum ReversalImage {
+    /// A pink (1/f) texture ([`reversing_texture`]).
+    Pink,
+    /// Thin lines on gray ([`reversing_lines`]).
+    Lines,
 }
 
 /// How the fit went.
@@ -268,7 +281,7 @@ fn planted() -> Result<Model> {
 
 /// Movies and the planted sensor's rates on them, seeded: `frames` each of binary noise (100 um
 /// checkers), full-field flicker (holds of 10 to 50 ms) and a naturalistic movie, and
-/// `reversal_frames` (if any) of a texture that reverses its motion now and then (the reversal
+/// `reversal.0` frames (if any) of a texture or lines (`reversal.1`) that reverse their motion now and then (the reversal
 /// cell is told apart from a motion detector only by such movies).
 ///
 /// The flicker's contrast is low (s.d. [`FLICKER_SD`]): measured with onnxruntime on the planted
@@ -280,9 +293,10 @@ fn planted() -> Result<Model> {
 fn dataset(
     planted: &Model,
     frames: usize,
-    reversal_frames: usize,
+    reversal: (usize, ReversalImage),
     seed: u64,
 ) -> Result<Vec<(Array3<f32>, Array2<f32>)>> {
+    let (reversal_frames, image) = reversal;
     let mut movies = vec![
         binary_noise(frames, SIZE, SIZE, 2, 1.0, seed),
         full_field_flicker(frames, SIZE, SIZE, FLICKER_SD, 5, seed + 1),
@@ -290,7 +304,11 @@ fn dataset(
     ];
     if reversal_frames > 0 {
         // Its own seed stream: seed + 3 is the next epoch's noise seed.
-        movies.push(reversing_texture(reversal_frames.max(LAGS), SIZE, SIZE, seed.wrapping_add(1 << 32)));
+        let make = match image {
+            ReversalImage::Pink => reversing_texture,
+            ReversalImage::Lines => reversing_lines,
+        };
+        movies.push(make(reversal_frames.max(LAGS), SIZE, SIZE, seed.wrapping_add(1 << 32)));
     }
     movies
         .into_iter()
@@ -462,12 +480,17 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     let t0 = Instant::now();
     let teacher = planted()?;
     let mut rng = ChaCha8Rng::seed_from_u64(s.seed);
-    let heldout = dataset(&teacher, s.heldout_frames, s.heldout_frames, s.seed.wrapping_mul(1000) + 500)?;
+    let heldout =
+        dataset(&teacher, s.heldout_frames, (s.heldout_frames, s.reversal_image), s.seed.wrapping_mul(1000) + 500)?;
     // Calibrated on what will be trained on (without the texture, a fit reproduces the runs made
     // before it existed, e.g. run F).
     let calibration_reversal = if s.reversal_frames > 0 { s.reversal_frames.max(1000) } else { 0 };
-    let calibration =
-        dataset(&teacher, s.train_frames.max(4000), calibration_reversal, s.seed.wrapping_mul(1000) + 700)?;
+    let calibration = dataset(
+        &teacher,
+        s.train_frames.max(4000),
+        (calibration_reversal, s.reversal_image),
+        s.seed.wrapping_mul(1000) + 700,
+    )?;
     let weights = cell_weights(s.loss, &calibration);
     let means: Vec<f32> = cell_moments(&calibration).iter().map(|&(m, _)| m as f32).collect();
     let mut student = Student::init(s, &means, &mut rng);
@@ -486,7 +509,12 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
             adam.lr = s.lr / 5.0;
         }
         let reversal = if epoch as f64 >= s.reversal_from * s.epochs as f64 { s.reversal_frames } else { 0 };
-        let train = dataset(&teacher, s.train_frames, reversal, s.seed.wrapping_mul(1000) + 10 + 3 * epoch as u64)?;
+        let train = dataset(
+            &teacher,
+            s.train_frames,
+            (reversal, s.reversal_image),
+            s.seed.wrapping_mul(1000) + 10 + 3 * epoch as u64,
+        )?;
         let mut windows: Vec<(usize, usize)> =
             train.iter().enumerate().flat_map(|(i, (m, _))| (LAGS - 1..m.shape()[0]).map(move |t| (i, t))).collect();
         windows.shuffle(&mut rng);

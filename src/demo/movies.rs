@@ -114,23 +114,73 @@ pub fn reversing_texture(frames: usize, height: usize, width: usize, seed: u64) 
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let size = 4 * height.max(width).next_power_of_two();
     let image = pink_image(size, 0.35, &mut rng);
+    reversing_view(&image, frames, height, width, &mut rng)
+}
+
+/// As [`reversing_texture`], but the image holds thin lines (see [`line_image`]): fine moving
+/// features that drive the reversal cell's direction-selective subunits one at a time, which a
+/// pink texture does not (its responses there survive blurring the movie by 2 pixels;
+/// `scripts/reversal_balance.py`).
+pub fn reversing_lines(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let size = 4 * height.max(width).next_power_of_two();
+    let image = line_image(size, 60, &mut rng);
+    reversing_view(&image, frames, height, width, &mut rng)
+}
+
+/// A periodic `size x size` gray image holding `lines` straight line segments at random
+/// positions and orientations, 1 to 3 pixels wide and 20 to 80 long, each bright or dark at a
+/// contrast of 0.5 to 1 (later lines cover earlier ones).
+pub fn line_image(size: usize, lines: usize, rng: &mut ChaCha8Rng) -> Array2<f32> {
+    let mut image = Array2::zeros((size, size));
+    let half = size as f64 / 2.0;
+    for _ in 0..lines {
+        let (cy, cx) = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
+        let angle = rng.random_range(0.0..std::f64::consts::PI);
+        let (width, length) = (rng.random_range(1.0..3.0), rng.random_range(20.0..80.0));
+        let sign = if rng.random_range(0..2) == 0 { -1.0 } else { 1.0 };
+        let contrast = (sign * rng.random_range(0.5..1.0)) as f32;
+        for ((y, x), v) in image.indexed_iter_mut() {
+            // Offsets on the torus, then across and along the line.
+            let dy = (y as f64 - cy + half).rem_euclid(size as f64) - half;
+            let dx = (x as f64 - cx + half).rem_euclid(size as f64) - half;
+            let (across, along) =
+                ((dy * angle.cos() - dx * angle.sin()).abs(), (dx * angle.cos() + dy * angle.sin()).abs());
+            if across < width / 2.0 && along < length / 2.0 {
+                *v = contrast;
+            }
+        }
+    }
+    image
+}
+
+/// A view of the periodic `image` in steady motion that now and then reverses (the motion of
+/// [`reversing_texture`]).
+fn reversing_view(
+    image: &Array2<f32>,
+    frames: usize,
+    height: usize,
+    width: usize,
+    rng: &mut ChaCha8Rng,
+) -> Array3<f32> {
+    let size = image.nrows();
     let velocity = |rng: &mut ChaCha8Rng| {
         let (speed, angle) = (rng.random_range(0.1..0.4), rng.random_range(0.0..std::f64::consts::TAU));
         (speed * angle.sin(), speed * angle.cos())
     };
     let (mut y, mut x) = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
-    let mut v = velocity(&mut rng);
+    let mut v = velocity(rng);
     let mut left = rng.random_range(15..=60);
     let mut movie = Array3::zeros((frames, height, width));
     for t in 0..frames {
         if left == 0 {
-            v = if rng.random_range(0.0..1.0) < 0.7 { (-v.0, -v.1) } else { velocity(&mut rng) };
+            v = if rng.random_range(0.0..1.0) < 0.7 { (-v.0, -v.1) } else { velocity(rng) };
             left = rng.random_range(15..=60);
         }
         left -= 1;
         y = (y + v.0).rem_euclid(size as f64);
         x = (x + v.1).rem_euclid(size as f64);
-        render(&image, (y, x), movie.index_axis_mut(ndarray::Axis(0), t));
+        render(image, (y, x), movie.index_axis_mut(ndarray::Axis(0), t));
     }
     movie
 }
@@ -263,6 +313,26 @@ mod tests {
         assert!((150..=250).contains(&changes), "{changes} changes");
         let sd = (m.iter().map(|v| v * v).sum::<f32>() / m.len() as f32).sqrt();
         assert!((sd - 0.35).abs() < 0.06, "s.d. {sd}");
+    }
+
+    #[test]
+    fn line_images_hold_thin_lines_on_gray() {
+        let img = line_image(64, 12, &mut ChaCha8Rng::seed_from_u64(4));
+        assert!(img.iter().all(|&v| v == 0.0 || (0.5..=1.0).contains(&v.abs())), "gray or a line's contrast");
+        let covered = img.iter().filter(|&&v| v != 0.0).count() as f64 / img.len() as f64;
+        assert!(covered > 0.02 && covered < 0.5, "covered {covered}");
+        // Lines are at most 3 pixels wide: almost every line pixel has gray within 2 pixels
+        // along a row or a column (crossings aside).
+        let n = 64;
+        let near_gray = |y: usize, x: usize| {
+            (1..=2).any(|d| {
+                [(y + d) % n, (y + n - d) % n].iter().any(|&yy| img[[yy, x]] == 0.0)
+                    || [(x + d) % n, (x + n - d) % n].iter().any(|&xx| img[[y, xx]] == 0.0)
+            })
+        };
+        let line: Vec<(usize, usize)> = img.indexed_iter().filter(|(_, &v)| v != 0.0).map(|(i, _)| i).collect();
+        let thin = line.iter().filter(|&&(y, x)| near_gray(y, x)).count() as f64 / line.len() as f64;
+        assert!(thin > 0.95, "share of line pixels near gray {thin}");
     }
 
     #[test]
