@@ -18,7 +18,7 @@ teach a fit how the cell answers a thin bar.
 import numpy as np
 import onnxruntime as ort
 
-from planted_response_statistics import pink_image, view
+from planted_response_statistics import pink_image, rates, view
 
 LAGS, SIZE, K1, FRAME_MS = 40, 50, 15, 10.0
 DS_SPEED, DS_PEAK_MS, DS_WIDTH_MS, DS_DELAY_MS, DS_THRESHOLD = 0.2, 100.0, 40.0, 80.0, 4.0
@@ -96,9 +96,9 @@ def main():
     movie, reversal = reversing_bar()
     bar = pathways(movie)
     session = ort.InferenceSession("models/synthetic-sensor-planted.onnx")
+    # Gray before the movie, as `sufficit respond` pads it.
     padded = np.concatenate([np.zeros((LAGS - 1, SIZE, SIZE)), movie]).astype(np.float32)
-    windows = np.stack([padded[t : t + LAGS] for t in range(len(movie))])
-    shipped = session.run(None, {session.get_inputs()[0].name: windows})[0][:, 1]
+    shipped = rates(session, padded)[:, 1]
     print(f"replica vs shipped planted model: max |difference| {np.abs(shipped - cell(bar, PLANTED_THETA, 1.0)).max():.1e}")
     scene = pathways(drifting_scene(2000, np.random.default_rng(5)))
     gammas = [0.7, 0.75, 0.8, 0.9, 1.0, 1.1, 1.25]

@@ -22,10 +22,10 @@ pub struct DemoModelsArgs {
     /// Training frames per epoch of each of binary noise, flicker and naturalistic movie.
     #[arg(long, default_value_t = FitSettings::default().train_frames)]
     pub train_frames: usize,
-    /// Frames of reversing texture per epoch.
+    /// Frames of reversing movie (see --reversal-image) per epoch.
     #[arg(long, default_value_t = FitSettings::default().reversal_frames)]
     pub reversal_frames: usize,
-    /// Fraction of the epochs (0 to 1) after which the reversing texture joins the training
+    /// Fraction of the epochs (0 to 1) after which the reversing movie joins the training
     /// movies.
     #[arg(long, value_parser = fraction, default_value_t = FitSettings::default().reversal_from)]
     pub reversal_from: f64,

@@ -27,11 +27,11 @@ pub struct FitSettings {
     /// Frames of each training movie kind (binary noise; full-field flicker; naturalistic),
     /// fresh every epoch.
     pub train_frames: usize,
-    /// Frames of reversing texture per epoch (0: none). The texture reverses its motion now and
-    /// then, which drives the reversal cell (rarely, in bursts); off by default until a fit
-    /// learns from it (docs/performance.md, session 6).
+    /// Frames of reversing movie (`reversal_image`) per epoch (0: none). It reverses its motion
+    /// now and then, which drives the reversal cell (rarely, in bursts); off by default until a
+    /// fit learns from it (docs/performance.md, sessions 6 and 7).
     pub reversal_frames: usize,
-    /// Fraction of the epochs after which the reversing texture joins the training movies (a
+    /// Fraction of the epochs after which the reversing movie joins the training movies (a
     /// curriculum: the network first learns what the other movies teach).
     pub reversal_from: f64,
     /// What the reversing movie shows (also in the held-out movies).
@@ -281,8 +281,8 @@ fn planted() -> Result<Model> {
 
 /// Movies and the planted sensor's rates on them, seeded: `frames` each of binary noise (100 um
 /// checkers), full-field flicker (holds of 10 to 50 ms) and a naturalistic movie, and
-/// `reversal.0` frames (if any) of a texture or lines (`reversal.1`) that reverse their motion now and then (the reversal
-/// cell is told apart from a motion detector only by such movies).
+/// `reversal.0` frames (if any) of a texture or lines (`reversal.1`) that reverse their motion
+/// now and then (the reversal cell is told apart from a motion detector only by such movies).
 ///
 /// The flicker's contrast is low (s.d. [`FLICKER_SD`]): measured with onnxruntime on the planted
 /// sensor (`scripts/planted_response_statistics.py` and a second draw), flicker of s.d. 0.35
@@ -469,7 +469,7 @@ pub struct Epoch {
     /// Held-out correlation per cell after the epoch.
     pub heldout_correlation: Vec<f64>,
     /// The same for each held-out movie kind alone (binary noise, flicker, naturalistic,
-    /// reversing texture: always held out, whether or not it is trained on).
+    /// reversing movie: always held out, whether or not it is trained on).
     pub heldout_by_kind: Vec<Vec<f64>>,
 }
 
