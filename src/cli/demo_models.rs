@@ -50,6 +50,10 @@ pub struct DemoModelsArgs {
     /// Channels of the two convolutions, e.g. 16,8.
     #[arg(long, value_name = "C1,C2", value_parser = channels, default_value = "16,8")]
     pub channels: (usize, usize),
+    /// Give each cell its own share of the channels (both counts multiples of the 3 cells), so
+    /// one cell's fit cannot disturb another's.
+    #[arg(long)]
+    pub separate_cells: bool,
 }
 
 /// Parse `C1,C2`.
@@ -84,6 +88,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             loss: a.loss,
             channels: a.channels,
             batch: a.batch.max(1),
+            separate_cells: a.separate_cells,
             ..Default::default()
         };
         let (model, report) = fit(&settings, &|e| {

@@ -53,6 +53,11 @@ pub struct FitSettings {
     /// Fraction of the epochs after which the step size drops to a fifth (a step decay, common
     /// practice: large steps find the basin, small ones settle in it).
     pub decay_after: f64,
+    /// Fit each cell with its own channels (an equal share of both layers; the second layer and
+    /// the readout block-diagonal, gradient clipping per cell): one cell's bursts then cannot
+    /// wreck the features another cell has learnt. Still one CNN with two convolutions and a
+    /// readout; the zero blocks are ordinary zero weights in the shipped model.
+    pub separate_cells: bool,
 }
 
 impl Default for FitSettings {
@@ -71,6 +76,7 @@ impl Default for FitSettings {
             kernels: (15, 15),
             loss: Loss::Poisson,
             decay_after: 0.7,
+            separate_cells: false,
         }
     }
 }
@@ -129,6 +135,9 @@ struct Student {
     /// features `[cells, c2]`, readout bias.
     factors: Vec<Tensor>,
     side: usize,
+    /// Channels per cell in the two layers, when each cell has its own (see
+    /// [`FitSettings::separate_cells`]).
+    per_cell: Option<(usize, usize)>,
 }
 
 impl Student {
@@ -154,7 +163,45 @@ impl Student {
             t(&[CELLS, c2], c2),
             Tensor::from_shape_fn(IxDyn(&[CELLS]), |i| inverse_softplus(mean_rates[i[0]])),
         ];
-        Student { factors, side }
+        let per_cell = s.separate_cells.then_some((c1 / CELLS, c2 / CELLS));
+        let mut student = Student { factors, side, per_cell };
+        let mut factors = std::mem::take(&mut student.factors);
+        student.mask(&mut factors);
+        student.factors = factors;
+        student
+    }
+
+    /// Which cell owns row `row` (the first axis) of factor `factor`, when cells have their own
+    /// channels; `None` when they share them.
+    fn owner(&self, factor: usize, row: usize) -> Option<usize> {
+        let (g1, g2) = self.per_cell?;
+        Some(match factor {
+            0 => row / RANK / g1,
+            1 | 2 => row / g1,
+            3 | 4 => row / g2,
+            _ => row,
+        })
+    }
+
+    /// Zero the entries of `tensors` (factors or their gradients) that join one cell's channels
+    /// to another's: second-layer weights across groups and readout features of other cells.
+    fn mask(&self, tensors: &mut [Tensor]) {
+        let Some((g1, g2)) = self.per_cell else { return };
+        for (f, t) in tensors.iter_mut().enumerate() {
+            match f {
+                3 => t.indexed_iter_mut().filter(|(i, _)| i[0] / g2 != i[1] / g1).for_each(|(_, v)| *v = 0.0),
+                6 => t.indexed_iter_mut().filter(|(i, _)| i[0] != i[1] / g2).for_each(|(_, v)| *v = 0.0),
+                _ => {}
+            }
+        }
+    }
+
+    /// The clipping group of entry `flat` of factor `factor`: its cell when cells have their
+    /// own channels, else 0.
+    fn group(&self, factor: usize, flat: usize) -> usize {
+        let t = &self.factors[factor];
+        let row = flat / (t.len() / t.shape()[0]).max(1);
+        self.owner(factor, row).unwrap_or(0)
     }
 
     /// The readout's full weight `[cells, c2 * side * side]` (mask times features).
@@ -431,29 +478,48 @@ fn split_gradients(
 /// gradient 100 times the usual into a step up to about 30 times its step size (its second
 /// moment follows with weight 0.001), and the reversal cell's rare bursts give such gradients:
 /// without clipping they wrecked the features the other cells had begun to learn.
-#[derive(Default)]
+/// Entries are clipped in groups (`group(factor, flat index)`, below `groups`), each with its
+/// own bound: one group when cells share channels, one per cell when they do not.
 struct Clip {
-    /// Running mean of clipped norms (0 before the first batch).
-    mean: f64,
+    /// Running mean of each group's clipped norms (0 before the first batch).
+    mean: Vec<f64>,
 }
 
 impl Clip {
     /// Bound, in running means.
     const FACTOR: f64 = 3.0;
 
-    /// Clip `grads` in place.
-    fn apply(&mut self, grads: &mut [Tensor]) {
-        let norm = grads.iter().flat_map(|g| g.iter()).map(|&v| (v as f64).powi(2)).sum::<f64>().sqrt();
-        if !(norm > 0.0 && norm.is_finite()) {
-            return;
+    /// Fresh state for `groups` groups.
+    fn new(groups: usize) -> Clip {
+        Clip { mean: vec![0.0; groups] }
+    }
+
+    /// Clip `grads` in place, group by group.
+    fn apply(&mut self, grads: &mut [Tensor], group: &dyn Fn(usize, usize) -> usize) {
+        let mut squares = vec![0.0f64; self.mean.len()];
+        for (f, g) in grads.iter().enumerate() {
+            for (i, &v) in g.iter().enumerate() {
+                squares[group(f, i)] += (v as f64).powi(2);
+            }
         }
-        let bound = if self.mean > 0.0 { Self::FACTOR * self.mean } else { norm };
-        if norm > bound {
-            let k = (bound / norm) as f32;
-            grads.iter_mut().for_each(|g| g.mapv_inplace(|v| v * k));
+        let mut scale = vec![1.0f32; self.mean.len()];
+        for (k, (mean, sq)) in self.mean.iter_mut().zip(&squares).enumerate() {
+            let norm = sq.sqrt();
+            if !(norm > 0.0 && norm.is_finite()) {
+                continue;
+            }
+            let bound = if *mean > 0.0 { Self::FACTOR * *mean } else { norm };
+            if norm > bound {
+                scale[k] = (bound / norm) as f32;
+            }
+            let kept = norm.min(bound);
+            *mean = if *mean > 0.0 { 0.98 * *mean + 0.02 * kept } else { kept };
         }
-        let kept = norm.min(bound);
-        self.mean = if self.mean > 0.0 { 0.98 * self.mean + 0.02 * kept } else { kept };
+        if scale.iter().any(|&k| k != 1.0) {
+            for (f, g) in grads.iter_mut().enumerate() {
+                g.iter_mut().enumerate().for_each(|(i, v)| *v *= scale[group(f, i)]);
+            }
+        }
     }
 }
 
@@ -478,6 +544,13 @@ pub struct Epoch {
 /// movies are never trained on. Returns the model and the report.
 pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb::ModelProto, FitReport)> {
     let t0 = Instant::now();
+    if s.separate_cells && (s.channels.0 % CELLS != 0 || s.channels.1 % CELLS != 0) {
+        return Err(crate::Error::Usage(format!(
+            "fit: with separate cells each of the {CELLS} cells gets an equal share of both layers' channels, \
+             so both channel counts must be multiples of {CELLS} (got {},{}; e.g. 18,9)",
+            s.channels.0, s.channels.1
+        )));
+    }
     let teacher = planted()?;
     let mut rng = ChaCha8Rng::seed_from_u64(s.seed);
     let heldout =
@@ -502,7 +575,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         .collect::<Result<_>>()?;
     let shapes: Vec<Vec<usize>> = student.factors.iter().map(|t| t.shape().to_vec()).collect();
     let mut adam = Adam::new(&shapes, s.lr);
-    let mut clip = Clip::default();
+    let mut clip = Clip::new(if s.separate_cells { CELLS } else { 1 });
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
     for epoch in 0..s.epochs {
         if epoch as f64 >= s.decay_after * s.epochs as f64 {
@@ -523,7 +596,8 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
             crate::interrupt::check()?;
             let (loss, per_cell, full) = split_gradients(&model, &ids, &train, batch, (s.loss, &weights))?;
             let mut grads = student.chain(full);
-            clip.apply(&mut grads);
+            student.mask(&mut grads);
+            clip.apply(&mut grads, &|f, i| student.group(f, i));
             {
                 let mut refs: Vec<&mut Tensor> = student.factors.iter_mut().collect();
                 adam.step(&mut refs, &grads);
@@ -636,17 +710,61 @@ mod tests {
 
     #[test]
     fn clipping_bounds_a_burst_and_leaves_usual_gradients_alone() {
-        let mut clip = Clip::default();
+        let mut clip = Clip::new(1);
         let g = |v: f32| vec![Tensor::from_elem(IxDyn(&[4]), v)];
         for _ in 0..20 {
             let mut usual = g(1.0);
-            clip.apply(&mut usual);
+            clip.apply(&mut usual, &|_, _| 0);
             assert_eq!(usual[0][[0]], 1.0);
         }
         let mut burst = g(100.0);
-        clip.apply(&mut burst);
+        clip.apply(&mut burst, &|_, _| 0);
         let norm = (4.0 * burst[0][[0]].powi(2)).sqrt();
         assert!((norm - 3.0 * 2.0).abs() < 1e-3, "clipped norm {norm}");
+    }
+
+    #[test]
+    fn clipping_in_groups_bounds_only_the_group_that_bursts() {
+        // Entries 0-1 are group 0, entries 2-3 group 1.
+        let mut clip = Clip::new(2);
+        let group = |_: usize, i: usize| i / 2;
+        for _ in 0..20 {
+            clip.apply(&mut [Tensor::from_elem(IxDyn(&[4]), 1.0)], &group);
+        }
+        let mut g = vec![Tensor::from_shape_vec(IxDyn(&[4]), vec![1.0, 1.0, 100.0, 100.0]).unwrap()];
+        clip.apply(&mut g, &group);
+        assert_eq!((g[0][[0]], g[0][[1]]), (1.0, 1.0));
+        let norm = (2.0 * g[0][[2]].powi(2)).sqrt();
+        assert!((norm - 3.0 * 2f32.sqrt()).abs() < 1e-3, "clipped norm {norm}");
+    }
+
+    #[test]
+    fn with_separate_cells_each_cells_rate_depends_only_on_its_own_channels() {
+        let s = FitSettings { channels: (6, 3), separate_cells: true, ..Default::default() };
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut rng);
+        let movie = naturalistic(LAGS + 4, SIZE, SIZE, 9);
+        let load = |st: &Student| Model::from_proto(st.proto(), Path::new("s.onnx"), &LoadOptions::default()).unwrap();
+        let before = rates(&load(&student), &movie, &|_| {}).unwrap();
+        // Cell 1 owns first-layer channels 2-3 (temporal rows 4-7) and second-layer channel 1.
+        for r in 4..8 {
+            student.factors[0].index_axis_mut(Axis(0), r).mapv_inplace(|w| -3.0 * w);
+        }
+        student.factors[4][[1]] += 1.0;
+        let after = rates(&load(&student), &movie, &|_| {}).unwrap();
+        for t in LAGS - 1..movie.shape()[0] {
+            assert_eq!(before[[t, 0]], after[[t, 0]]);
+            assert_eq!(before[[t, 2]], after[[t, 2]]);
+        }
+        let moved = (LAGS - 1..movie.shape()[0]).map(|t| (before[[t, 1]] - after[[t, 1]]).abs()).fold(0.0, f32::max);
+        assert!(moved > 1e-3, "cell 1 did not change ({moved})");
+        // The gradients of the joining weights are masked, and each entry's clipping group is
+        // its cell.
+        let mut g: Vec<Tensor> = student.factors.iter().map(|f| Tensor::from_elem(IxDyn(f.shape()), 1.0)).collect();
+        student.mask(&mut g);
+        assert_eq!(g[3].iter().filter(|&&v| v != 0.0).count(), 3 * 2 * 15 * 15);
+        assert_eq!(g[6].iter().filter(|&&v| v != 0.0).count(), 3);
+        assert_eq!((student.group(0, 0), student.group(1, 2 * RANK * 15 * 15), student.group(6, 2 * 3)), (0, 1, 2));
     }
 
     #[test]
