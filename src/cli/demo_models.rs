@@ -22,6 +22,9 @@ pub struct DemoModelsArgs {
     /// Training frames per epoch of each of binary noise, flicker and naturalistic movie.
     #[arg(long, default_value_t = FitSettings::default().train_frames)]
     pub train_frames: usize,
+    /// Frames of naturalistic movie with a moving object per epoch.
+    #[arg(long, default_value_t = FitSettings::default().object_frames)]
+    pub object_frames: usize,
     /// Frames of reversing movie (see --reversal-image) per epoch.
     #[arg(long, default_value_t = FitSettings::default().reversal_frames)]
     pub reversal_frames: usize,
@@ -54,6 +57,13 @@ pub struct DemoModelsArgs {
     /// one cell's fit cannot disturb another's.
     #[arg(long)]
     pub separate_cells: bool,
+    /// Train this many students from consecutive seeds for --restart-epochs, keep for each
+    /// cell the one predicting it best on the held-out movies, and train on (1: no restarts).
+    #[arg(long, default_value_t = FitSettings::default().restarts)]
+    pub restarts: usize,
+    /// Epochs of each restart before the choice (part of --epochs).
+    #[arg(long, default_value_t = FitSettings::default().restart_epochs)]
+    pub restart_epochs: usize,
 }
 
 /// Parse `C1,C2`.
@@ -80,6 +90,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
         let settings = FitSettings {
             seed: a.seed,
             train_frames: a.train_frames,
+            object_frames: a.object_frames,
             reversal_frames: a.reversal_frames,
             reversal_from: a.reversal_from,
             reversal_image: a.reversal_image,
@@ -89,24 +100,34 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             channels: a.channels,
             batch: a.batch.max(1),
             separate_cells: a.separate_cells,
+            restarts: a.restarts.max(1),
+            restart_epochs: a.restart_epochs.min(a.epochs),
             ..Default::default()
         };
+        let out = OutputDir::create(&a.out)?;
+        let started = std::time::Instant::now();
         let (model, report) = fit(&settings, &|e| {
             eprintln!(
-                "epoch {}: training loss {:.4}, per cell {:.3?}, held-out r {:.3?} (noise, flicker, scenes, reversing: {:.2?})",
-                e.number, e.loss, e.cell_loss, e.heldout_correlation, e.heldout_by_kind
-            )
+                "{}epoch {} ({:.0} s): training loss {:.4}, per cell {:.3?}, held-out r {:.3?} (noise, flicker, scenes, object, reversing: {:.2?})",
+                e.restart.map_or(String::new(), |k| format!("restart {k}, ")),
+                e.number,
+                started.elapsed().as_secs_f64(), e.loss, e.cell_loss, e.heldout_correlation, e.heldout_by_kind
+            );
+            // The latest epoch's model, so a fit stopped early leaves one to examine.
+            if let Err(err) = out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&e.model)) {
+                eprintln!("epoch {}: could not write the model: {err}", e.number);
+            }
         })?;
-        let out = OutputDir::create(&a.out)?;
         out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&model))?;
         out.write_json(
             "synthetic-sensor-fitted.json",
             &json!({"schema": "sufficit/1", "settings": settings, "report": report, "version": env!("CARGO_PKG_VERSION")}),
         )?;
         println!(
-            "wrote {}: held-out correlation per cell {:?}, {:.0} s",
+            "wrote {}: held-out correlation per cell {:?} (restart kept per cell {:?}), {:.0} s",
             a.out.join(FITTED_FILE).display(),
             report.heldout_correlation,
+            report.chosen_restart,
             report.seconds
         );
     }

@@ -2,7 +2,9 @@
 //! trained with the engine's gradients and Adam on the planted sensor's responses to white noise
 //! and naturalistic movies, and judged on held-out movies. Reproducible from its seed.
 
-use super::movies::{binary_noise, full_field_flicker, naturalistic, reversing_lines, reversing_texture};
+use super::movies::{
+    binary_noise, full_field_flicker, naturalistic, reversing_lines, reversing_texture, scene_with_object,
+};
 use super::planted::{synthetic_sensor, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
 use crate::model::builder::{int_attr, OnnxBuilder};
@@ -27,6 +29,9 @@ pub struct FitSettings {
     /// Frames of each training movie kind (binary noise; full-field flicker; naturalistic),
     /// fresh every epoch.
     pub train_frames: usize,
+    /// Frames of naturalistic movie with a moving object ([`scene_with_object`]) per epoch (0:
+    /// none; always in the held-out movies).
+    pub object_frames: usize,
     /// Frames of reversing movie (`reversal_image`) per epoch (0: none). It reverses its motion
     /// now and then, which drives the reversal cell (rarely, in bursts); off by default until a
     /// fit learns from it (docs/performance.md, sessions 6 and 7).
@@ -58,6 +63,12 @@ pub struct FitSettings {
     /// wreck the features another cell has learnt. Still one CNN with two convolutions and a
     /// readout; the zero blocks are ordinary zero weights in the shipped model.
     pub separate_cells: bool,
+    /// Students trained from consecutive seeds before choosing (1: no restarts). The fit's
+    /// outcome hangs on its start (docs/performance.md, runs F/M, Q/R, T/U), so several short
+    /// starts are judged on held-out movies.
+    pub restarts: usize,
+    /// Epochs each restart trains before the choice (they count towards `epochs`).
+    pub restart_epochs: usize,
 }
 
 impl Default for FitSettings {
@@ -65,6 +76,7 @@ impl Default for FitSettings {
         FitSettings {
             seed: 1,
             train_frames: 2000,
+            object_frames: 0,
             reversal_frames: 0,
             reversal_from: 0.0,
             reversal_image: ReversalImage::Pink,
@@ -77,6 +89,8 @@ impl Default for FitSettings {
             loss: Loss::Poisson,
             decay_after: 0.7,
             separate_cells: false,
+            restarts: 1,
+            restart_epochs: 5,
         }
     }
 }
@@ -100,6 +114,8 @@ pub struct FitReport {
     pub epoch_loss: Vec<f64>,
     /// The same per cell.
     pub epoch_cell_loss: Vec<Vec<f64>>,
+    /// For each cell, the restart whose channels it kept (all 0 without restarts).
+    pub chosen_restart: Vec<usize>,
     /// Wall time of the fit, seconds.
     pub seconds: f64,
 }
@@ -129,6 +145,7 @@ const RANK: usize = 2;
 /// channel, then a grouped spatial convolution summing each channel's maps: about 20 times less
 /// work than the full first layer); the shipped model is written with ordinary Conv and Gemm
 /// weights, the sums of products of the factors.
+#[derive(Clone)]
 struct Student {
     /// conv1 temporal `[c1 * RANK, LAGS, 1, 1]`, conv1 spatial `[c1, RANK, k1, k1]`, conv1 bias,
     /// conv2 weight `[c2, c1, k2, k2]`, conv2 bias, readout mask `[cells, side * side]`, readout
@@ -192,6 +209,23 @@ impl Student {
                 3 => t.indexed_iter_mut().filter(|(i, _)| i[0] / g2 != i[1] / g1).for_each(|(_, v)| *v = 0.0),
                 6 => t.indexed_iter_mut().filter(|(i, _)| i[0] != i[1] / g2).for_each(|(_, v)| *v = 0.0),
                 _ => {}
+            }
+        }
+    }
+
+    /// Copy cell `cell`'s channels (every row it owns, in every factor) from `other`, a student
+    /// of the same shape; with shared channels, the whole student.
+    fn take_cell(&mut self, other: &Student, cell: usize) {
+        if self.per_cell.is_none() {
+            self.factors = other.factors.clone();
+            return;
+        }
+        for f in 0..self.factors.len() {
+            for row in 0..self.factors[f].shape()[0] {
+                if self.owner(f, row) == Some(cell) {
+                    let src = other.factors[f].index_axis(Axis(0), row).to_owned();
+                    self.factors[f].index_axis_mut(Axis(0), row).assign(&src);
+                }
             }
         }
     }
@@ -326,8 +360,12 @@ fn planted() -> Result<Model> {
     Model::from_proto(synthetic_sensor(), Path::new("synthetic-sensor-planted.onnx"), &LoadOptions::default())
 }
 
+/// Frames of each reversing movie in [`dataset`].
+const REVERSAL_CHUNK: usize = 250;
+
 /// Movies and the planted sensor's rates on them, seeded: `frames` each of binary noise (100 um
-/// checkers), full-field flicker (holds of 10 to 50 ms) and a naturalistic movie, and
+/// checkers), full-field flicker (holds of 10 to 50 ms) and a naturalistic movie, `object_frames`
+/// (if any) of a naturalistic movie with a moving object, and
 /// `reversal.0` frames (if any) of a texture or lines (`reversal.1`) that reverse their motion
 /// now and then (the reversal cell is told apart from a motion detector only by such movies).
 ///
@@ -339,7 +377,7 @@ fn planted() -> Result<Model> {
 /// is what the flicker is for.
 fn dataset(
     planted: &Model,
-    frames: usize,
+    (frames, object_frames): (usize, usize),
     reversal: (usize, ReversalImage),
     seed: u64,
 ) -> Result<Vec<(Array3<f32>, Array2<f32>)>> {
@@ -349,13 +387,22 @@ fn dataset(
         full_field_flicker(frames, SIZE, SIZE, FLICKER_SD, 5, seed + 1),
         naturalistic(frames, SIZE, SIZE, seed + 2),
     ];
-    if reversal_frames > 0 {
-        // Its own seed stream: seed + 3 is the next epoch's noise seed.
+    if object_frames > 0 {
+        // Its own seed stream, like the reversing movies'.
+        movies.push(scene_with_object(object_frames.max(LAGS + 1), SIZE, SIZE, seed.wrapping_add(1 << 33)));
+    }
+    // Several short reversing movies, each with its own image, rather than one long one: how
+    // often the reversal cell is driven depends on the image and on the axis of its motion
+    // (which a reversal keeps), so one long movie swings from no event to many between draws
+    // (numpy replica, 300 lines, 500 frames: above 1 in 0 % to 12.6 % of frames over 8 seeds).
+    for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {
+        // Their own seed stream: seed + 3 is the next epoch's noise seed.
         let make = match image {
             ReversalImage::Pink => reversing_texture,
             ReversalImage::Lines => reversing_lines,
         };
-        movies.push(make(reversal_frames.max(LAGS), SIZE, SIZE, seed.wrapping_add(1 << 32)));
+        let frames = REVERSAL_CHUNK.min(reversal_frames - k * REVERSAL_CHUNK).max(LAGS + 1);
+        movies.push(make(frames, SIZE, SIZE, seed.wrapping_add(1 << 32).wrapping_add((k as u64) << 40)));
     }
     movies
         .into_iter()
@@ -417,8 +464,13 @@ fn sample_windows(data: &[(Array3<f32>, Array2<f32>)], n: usize, rng: &mut ChaCh
 }
 
 /// Pearson correlation of the student's and the teacher's rates on `data`, per cell: pooled over
-/// all movies, and for each movie alone (`[movie][cell]`).
-fn correlations(student: &Model, data: &[(Array3<f32>, Array2<f32>)]) -> Result<(Vec<f64>, Vec<Vec<f64>>)> {
+/// all movies, and for each kind alone (`[kind][cell]`; see [`dataset`]; the first `singles`
+/// movies are one kind each, the rest one kind).
+fn correlations(
+    student: &Model,
+    data: &[(Array3<f32>, Array2<f32>)],
+    singles: usize,
+) -> Result<(Vec<f64>, Vec<Vec<f64>>)> {
     let fitted: Vec<Array2<f32>> = data.iter().map(|(m, _)| rates(student, m, &|_| {})).collect::<Result<_>>()?;
     let pairs = |movies: &[usize], cell: usize| {
         let (mut a, mut b) = (Vec::new(), Vec::new());
@@ -432,7 +484,13 @@ fn correlations(student: &Model, data: &[(Array3<f32>, Array2<f32>)]) -> Result<
     };
     let all: Vec<usize> = (0..data.len()).collect();
     let pooled = (0..CELLS).map(|c| pairs(&all, c)).collect();
-    let each = (0..data.len()).map(|i| (0..CELLS).map(|c| pairs(&[i], c)).collect()).collect();
+    // The first `singles` movies (noise, flicker, scenes, scene with object) alone; the short
+    // reversing movies after them pooled as one kind.
+    let mut kinds: Vec<Vec<usize>> = (0..data.len().min(singles)).map(|i| vec![i]).collect();
+    if data.len() > singles {
+        kinds.push((singles..data.len()).collect());
+    }
+    let each = kinds.iter().map(|k| (0..CELLS).map(|c| pairs(k, c)).collect()).collect();
     Ok((pooled, each))
 }
 
@@ -528,20 +586,119 @@ impl Clip {
 pub struct Epoch {
     /// Epoch number, from 1.
     pub number: usize,
+    /// Which restart this epoch trained (from 0), while restarts train; `None` after.
+    pub restart: Option<usize>,
     /// Mean weighted training loss.
     pub loss: f64,
     /// The same per cell.
     pub cell_loss: Vec<f64>,
     /// Held-out correlation per cell after the epoch.
     pub heldout_correlation: Vec<f64>,
-    /// The same for each held-out movie kind alone (binary noise, flicker, naturalistic,
-    /// reversing movie: always held out, whether or not it is trained on).
+    /// The same for each held-out movie kind alone (binary noise, flicker, naturalistic, scene
+    /// with object, reversing movie: always held out, whether or not they are trained on).
     pub heldout_by_kind: Vec<Vec<f64>>,
+    /// The model after this epoch (as shipped), so a fit stopped early leaves its latest model.
+    pub model: tract_onnx::pb::ModelProto,
+}
+
+/// One fit in progress: the student, its training graph and its optimiser's state.
+struct Run {
+    student: Student,
+    model: Model,
+    ids: Vec<crate::engine::ValueId>,
+    adam: Adam,
+    clip: Clip,
+    rng: ChaCha8Rng,
+    /// Seed of the training movies.
+    seed: u64,
+}
+
+impl Run {
+    /// A fresh student from `seed`, initialised on the calibration sample.
+    fn start(s: &FitSettings, seed: u64, calibration: &[(Array3<f32>, Array2<f32>)]) -> Result<Run> {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let means: Vec<f32> = cell_moments(calibration).iter().map(|&(m, _)| m as f32).collect();
+        let mut student = Student::init(s, &means, &mut rng);
+        student.scale_to_data(&sample_windows(calibration, 96, &mut rng)?)?;
+        Run::resume(s, student, rng, seed)
+    }
+
+    /// Train `student` on from here, with a fresh optimiser.
+    fn resume(s: &FitSettings, student: Student, rng: ChaCha8Rng, seed: u64) -> Result<Run> {
+        let model = Model::from_proto(student.training_proto(), Path::new("fitted.onnx"), &LoadOptions::default())?;
+        let ids: Vec<_> = TRAINED
+            .iter()
+            .map(|n| model.graph.find(n).ok_or_else(|| crate::Error::Usage(format!("fit: no parameter '{n}'"))))
+            .collect::<Result<_>>()?;
+        let shapes: Vec<Vec<usize>> = student.factors.iter().map(|t| t.shape().to_vec()).collect();
+        let adam = Adam::new(&shapes, s.lr);
+        let clip = Clip::new(if s.separate_cells { CELLS } else { 1 });
+        Ok(Run { student, model, ids, adam, clip, rng, seed })
+    }
+
+    /// Train epoch `epoch` (from 0) on fresh movies; returns the mean loss, overall and per cell.
+    fn epoch(&mut self, s: &FitSettings, teacher: &Model, epoch: usize, weights: &[f32]) -> Result<(f64, Vec<f64>)> {
+        if epoch as f64 >= s.decay_after * s.epochs as f64 {
+            self.adam.lr = s.lr / 5.0;
+        }
+        let reversal = if epoch as f64 >= s.reversal_from * s.epochs as f64 { s.reversal_frames } else { 0 };
+        let train = dataset(
+            teacher,
+            (s.train_frames, s.object_frames),
+            (reversal, s.reversal_image),
+            self.seed.wrapping_mul(1000) + 10 + 3 * epoch as u64,
+        )?;
+        let mut windows: Vec<(usize, usize)> =
+            train.iter().enumerate().flat_map(|(i, (m, _))| (LAGS - 1..m.shape()[0]).map(move |t| (i, t))).collect();
+        windows.shuffle(&mut self.rng);
+        let (mut total, mut cells, mut steps) = (0.0, vec![0.0; CELLS], 0);
+        for batch in windows.chunks(s.batch) {
+            crate::interrupt::check()?;
+            let (loss, per_cell, full) = split_gradients(&self.model, &self.ids, &train, batch, (s.loss, weights))?;
+            let mut grads = self.student.chain(full);
+            self.student.mask(&mut grads);
+            let student = &self.student;
+            self.clip.apply(&mut grads, &|f, i| student.group(f, i));
+            {
+                let mut refs: Vec<&mut Tensor> = self.student.factors.iter_mut().collect();
+                self.adam.step(&mut refs, &grads);
+            }
+            for (&id, t) in self.ids.iter().zip(self.student.trained()) {
+                let slot =
+                    self.model.graph.param_mut(id).ok_or_else(|| {
+                        crate::Error::Usage("fit: a student parameter is not a graph parameter".into())
+                    })?;
+                *slot = t;
+            }
+            total += loss;
+            cells.iter_mut().zip(per_cell).for_each(|(a, v)| *a += v);
+            steps += 1;
+        }
+        let n = steps.max(1) as f64;
+        Ok((total / n, cells.iter().map(|c| c / n).collect()))
+    }
+}
+
+/// For each cell, the candidate whose held-out correlation for that cell is highest (`r[k][c]`:
+/// candidate `k`, cell `c`; NaN counts as lowest); with shared channels the candidate with the
+/// highest mean over cells, for every cell.
+fn best_candidates(r: &[Vec<f64>], separate: bool) -> Vec<usize> {
+    let score = |v: f64| if v.is_nan() { f64::NEG_INFINITY } else { v };
+    let best = |key: &dyn Fn(usize) -> f64| (0..r.len()).fold(0, |b, k| if key(k) > key(b) { k } else { b });
+    if separate {
+        (0..CELLS).map(|c| best(&|k| score(r[k][c]))).collect()
+    } else {
+        let k = best(&|k| r[k].iter().map(|&v| score(v)).sum::<f64>());
+        vec![k; CELLS]
+    }
 }
 
 /// Fit the CNN; `progress` is called after each epoch.
 /// Every epoch trains on fresh movies (the planted model gives unlimited data); the held-out
-/// movies are never trained on. Returns the model and the report.
+/// movies are never trained on. With restarts, `restarts` students from consecutive seeds train
+/// `restart_epochs` epochs each; each cell then keeps the channels of the student that predicts
+/// it best on the held-out movies (validation, never the protocols), and the assembled student
+/// trains on for the remaining epochs. Returns the model and the report.
 pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb::ModelProto, FitReport)> {
     let t0 = Instant::now();
     if s.separate_cells && (s.channels.0 % CELLS != 0 || s.channels.1 % CELLS != 0) {
@@ -552,84 +709,74 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         )));
     }
     let teacher = planted()?;
-    let mut rng = ChaCha8Rng::seed_from_u64(s.seed);
-    let heldout =
-        dataset(&teacher, s.heldout_frames, (s.heldout_frames, s.reversal_image), s.seed.wrapping_mul(1000) + 500)?;
+    let h = s.heldout_frames;
+    let heldout = dataset(&teacher, (h, h), (h, s.reversal_image), s.seed.wrapping_mul(1000) + 500)?;
     // Calibrated on what will be trained on (without the texture, a fit reproduces the runs made
     // before it existed, e.g. run F).
     let calibration_reversal = if s.reversal_frames > 0 { s.reversal_frames.max(1000) } else { 0 };
     let calibration = dataset(
         &teacher,
-        s.train_frames.max(4000),
+        (s.train_frames.max(4000), if s.object_frames > 0 { s.object_frames.max(1000) } else { 0 }),
         (calibration_reversal, s.reversal_image),
         s.seed.wrapping_mul(1000) + 700,
     )?;
     let weights = cell_weights(s.loss, &calibration);
-    let means: Vec<f32> = cell_moments(&calibration).iter().map(|&(m, _)| m as f32).collect();
-    let mut student = Student::init(s, &means, &mut rng);
-    student.scale_to_data(&sample_windows(&calibration, 96, &mut rng)?)?;
-    let mut model = Model::from_proto(student.training_proto(), Path::new("fitted.onnx"), &LoadOptions::default())?;
-    let ids: Vec<_> = TRAINED
-        .iter()
-        .map(|n| model.graph.find(n).ok_or_else(|| crate::Error::Usage(format!("fit: no parameter '{n}'"))))
-        .collect::<Result<_>>()?;
-    let shapes: Vec<Vec<usize>> = student.factors.iter().map(|t| t.shape().to_vec()).collect();
-    let mut adam = Adam::new(&shapes, s.lr);
-    let mut clip = Clip::new(if s.separate_cells { CELLS } else { 1 });
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
-    for epoch in 0..s.epochs {
-        if epoch as f64 >= s.decay_after * s.epochs as f64 {
-            adam.lr = s.lr / 5.0;
-        }
-        let reversal = if epoch as f64 >= s.reversal_from * s.epochs as f64 { s.reversal_frames } else { 0 };
-        let train = dataset(
-            &teacher,
-            s.train_frames,
-            (reversal, s.reversal_image),
-            s.seed.wrapping_mul(1000) + 10 + 3 * epoch as u64,
-        )?;
-        let mut windows: Vec<(usize, usize)> =
-            train.iter().enumerate().flat_map(|(i, (m, _))| (LAGS - 1..m.shape()[0]).map(move |t| (i, t))).collect();
-        windows.shuffle(&mut rng);
-        let (mut total, mut cells, mut steps) = (0.0, [0.0; CELLS], 0);
-        for batch in windows.chunks(s.batch) {
-            crate::interrupt::check()?;
-            let (loss, per_cell, full) = split_gradients(&model, &ids, &train, batch, (s.loss, &weights))?;
-            let mut grads = student.chain(full);
-            student.mask(&mut grads);
-            clip.apply(&mut grads, &|f, i| student.group(f, i));
-            {
-                let mut refs: Vec<&mut Tensor> = student.factors.iter_mut().collect();
-                adam.step(&mut refs, &grads);
-            }
-            for (&id, t) in ids.iter().zip(student.trained()) {
-                let slot = model
-                    .graph
-                    .param_mut(id)
-                    .ok_or_else(|| crate::Error::Usage("fit: a student parameter is not a graph parameter".into()))?;
-                *slot = t;
-            }
-            total += loss;
-            cells.iter_mut().zip(per_cell).for_each(|(a, v)| *a += v);
-            steps += 1;
-        }
-        let loss = total / steps.max(1) as f64;
-        let cells: Vec<f64> = cells.iter().map(|c| c / steps.max(1) as f64).collect();
-        let (pooled, by_kind) = correlations(&model, &heldout)?;
-        heldout_correlation = pooled;
+    let mut report = |run: &Run, restart: Option<usize>, epoch: usize, (loss, cells): (f64, Vec<f64>)| {
+        let (pooled, by_kind) = correlations(&run.model, &heldout, 4)?;
         progress(&Epoch {
             number: epoch + 1,
+            restart,
             loss,
             cell_loss: cells.clone(),
-            heldout_correlation: heldout_correlation.clone(),
+            heldout_correlation: pooled.clone(),
             heldout_by_kind: by_kind,
+            model: run.student.proto(),
         });
-        epoch_loss.push(loss);
-        epoch_cell_loss.push(cells);
+        if restart.is_none() {
+            epoch_loss.push(loss);
+            epoch_cell_loss.push(cells);
+        }
+        Ok::<_, crate::Error>(pooled)
+    };
+    let (first, chosen) = if s.restarts > 1 {
+        let mut candidates = Vec::new();
+        let mut scores = Vec::new();
+        for k in 0..s.restarts {
+            let mut run = Run::start(s, s.seed + k as u64, &calibration)?;
+            let mut r = vec![f64::NAN; CELLS];
+            for epoch in 0..s.restart_epochs {
+                let losses = run.epoch(s, &teacher, epoch, &weights)?;
+                r = report(&run, Some(k), epoch, losses)?;
+            }
+            candidates.push(run);
+            scores.push(r);
+        }
+        let chosen = best_candidates(&scores, s.separate_cells);
+        let mut student = candidates[chosen[0]].student.clone();
+        for (cell, &k) in chosen.iter().enumerate() {
+            student.take_cell(&candidates[k].student, cell);
+        }
+        let run0 = candidates.swap_remove(0);
+        (Run::resume(s, student, run0.rng, s.seed)?, chosen)
+    } else {
+        (Run::start(s, s.seed, &calibration)?, vec![0; CELLS])
+    };
+    let mut run = first;
+    let begin = if s.restarts > 1 { s.restart_epochs } else { 0 };
+    for epoch in begin..s.epochs {
+        let losses = run.epoch(s, &teacher, epoch, &weights)?;
+        heldout_correlation = report(&run, None, epoch, losses)?;
     }
     Ok((
-        student.proto(),
-        FitReport { heldout_correlation, epoch_loss, epoch_cell_loss, seconds: t0.elapsed().as_secs_f64() },
+        run.student.proto(),
+        FitReport {
+            heldout_correlation,
+            epoch_loss,
+            epoch_cell_loss,
+            chosen_restart: chosen,
+            seconds: t0.elapsed().as_secs_f64(),
+        },
     ))
 }
 
@@ -765,6 +912,45 @@ mod tests {
         assert_eq!(g[3].iter().filter(|&&v| v != 0.0).count(), 3 * 2 * 15 * 15);
         assert_eq!(g[6].iter().filter(|&&v| v != 0.0).count(), 3);
         assert_eq!((student.group(0, 0), student.group(1, 2 * RANK * 15 * 15), student.group(6, 2 * 3)), (0, 1, 2));
+    }
+
+    #[test]
+    fn each_cell_keeps_the_restart_that_predicts_it_best() {
+        let r = vec![vec![0.9, 0.1, f64::NAN], vec![0.5, 0.6, 0.2], vec![0.7, 0.3, 0.1]];
+        assert_eq!(best_candidates(&r, true), [0, 1, 1]);
+        // Shared channels: one student for all, the best on average (NaN counts as lowest).
+        assert_eq!(best_candidates(&r, false), [1; 3]);
+    }
+
+    #[test]
+    fn taking_a_cells_channels_from_another_student_moves_that_cells_rates_only() {
+        let s = FitSettings { channels: (6, 3), separate_cells: true, ..Default::default() };
+        let a = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(1));
+        let b = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(2));
+        let mut mixed = a.clone();
+        mixed.take_cell(&b, 1);
+        let movie = naturalistic(LAGS + 4, SIZE, SIZE, 9);
+        let rates_of = |st: &Student| {
+            let m = Model::from_proto(st.proto(), Path::new("s.onnx"), &LoadOptions::default()).unwrap();
+            rates(&m, &movie, &|_| {}).unwrap()
+        };
+        let (ra, rb, rm) = (rates_of(&a), rates_of(&b), rates_of(&mixed));
+        for t in LAGS - 1..movie.shape()[0] {
+            assert_eq!((rm[[t, 0]], rm[[t, 2]]), (ra[[t, 0]], ra[[t, 2]]));
+            assert!((rm[[t, 1]] - rb[[t, 1]]).abs() < 1e-6);
+        }
+        assert!((LAGS - 1..movie.shape()[0]).any(|t| ra[[t, 1]] != rb[[t, 1]]), "the two students differ");
+    }
+
+    #[test]
+    fn the_reversing_frames_come_as_short_movies_each_with_its_own_image() {
+        let planted = planted().unwrap();
+        let data = dataset(&planted, (LAGS + 1, 0), (2 * REVERSAL_CHUNK + 60, ReversalImage::Lines), 7).unwrap();
+        let frames: Vec<usize> = data.iter().map(|(m, _)| m.shape()[0]).collect();
+        assert_eq!(frames, [LAGS + 1, LAGS + 1, LAGS + 1, REVERSAL_CHUNK, REVERSAL_CHUNK, 60]);
+        // Different images: the first frames of the reversing movies differ.
+        assert!(data[3].0.index_axis(Axis(0), 0) != data[4].0.index_axis(Axis(0), 0));
+        assert!(data.iter().all(|(m, r)| r.nrows() == m.shape()[0]));
     }
 
     #[test]

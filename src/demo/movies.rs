@@ -91,6 +91,54 @@ pub fn naturalistic(frames: usize, height: usize, width: usize, seed: u64) -> Ar
     movie
 }
 
+/// A naturalistic movie with a moving object `[frames, height, width]`: [`naturalistic`]'s
+/// drifting scene (same seed), and over it a disk (radius 4 to 10 pixels) cut from a second
+/// pink image that moves rigidly with its own Ornstein-Uhlenbeck velocity (same statistics as
+/// the scene's, independent of it), kept within 12 pixels of the frame centre by reflection.
+/// Objects moving against their background are everyday visual input; drifting scenes alone
+/// never show the centre and surround of a receptive field moving differently.
+pub fn scene_with_object(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    let mut movie = naturalistic(frames, height, width, seed);
+    let mut rng = ChaCha8Rng::seed_from_u64(seed ^ 0x0b1e_c7ed);
+    let size = 4 * height.max(width).next_power_of_two();
+    let texture = pink_image(size, 0.35, &mut rng);
+    let radius: f64 = rng.random_range(4.0..10.0);
+    let (cy, cx, reach) = (height as f64 / 2.0, width as f64 / 2.0, 12.0);
+    let (mut y, mut x) = (cy + rng.random_range(-reach..reach), cx + rng.random_range(-reach..reach));
+    let offset = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
+    let (speed_px, tau_frames): (f64, f64) = (0.3, 20.0);
+    let decay = (-1.0 / tau_frames).exp();
+    let kick = speed_px * (1.0 - decay * decay).sqrt();
+    let (mut vy, mut vx) = (0.0f64, 0.0f64);
+    let mut view = Array2::zeros((height, width));
+    for t in 0..frames {
+        let (ny, nx): (f64, f64) = (StandardNormal.sample(&mut rng), StandardNormal.sample(&mut rng));
+        vy = decay * vy + kick * ny;
+        vx = decay * vx + kick * nx;
+        (y, vy) = reflect(y + vy, vy, cy, reach);
+        (x, vx) = reflect(x + vx, vx, cx, reach);
+        // The texture moves with the disk: its view is shifted by the disk's position.
+        let at = ((offset.0 - y).rem_euclid(size as f64), (offset.1 - x).rem_euclid(size as f64));
+        render(&texture, at, view.view_mut());
+        let mut frame = movie.index_axis_mut(ndarray::Axis(0), t);
+        for ((r, c), v) in frame.indexed_iter_mut() {
+            if (r as f64 + 0.5 - y).powi(2) + (c as f64 + 0.5 - x).powi(2) < radius * radius {
+                *v = view[[r, c]];
+            }
+        }
+    }
+    movie
+}
+
+/// Position and velocity after reflecting `p` back into `centre +- reach`.
+fn reflect(p: f64, v: f64, centre: f64, reach: f64) -> (f64, f64) {
+    if (p - centre).abs() > reach {
+        (centre + (p - centre).clamp(-reach, reach), -v)
+    } else {
+        (p, v)
+    }
+}
+
 /// Fill `frame` with the view of the periodic `image` whose top-left corner is at the sub-pixel
 /// position `(y, x)` (bilinear interpolation).
 fn render(image: &Array2<f32>, (y, x): (f64, f64), mut frame: ndarray::ArrayViewMut2<f32>) {
@@ -124,9 +172,13 @@ pub fn reversing_texture(frames: usize, height: usize, width: usize, seed: u64) 
 pub fn reversing_lines(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let size = 4 * height.max(width).next_power_of_two();
-    let image = line_image(size, 60, &mut rng);
+    let image = line_image(size, LINES, &mut rng);
     reversing_view(&image, frames, height, width, &mut rng)
 }
+
+/// Line segments in the image of [`reversing_lines`]: about a third of a 13 x 13 pixel patch
+/// then holds a line (60 lines left most frames' centre empty).
+const LINES: usize = 300;
 
 /// A periodic `size x size` gray image holding `lines` straight line segments at random
 /// positions and orientations, 1 to 3 pixels wide and 20 to 80 long, each bright or dark at a
@@ -259,6 +311,26 @@ mod tests {
         let (mx, my) = (mx / pts.len() as f64, my / pts.len() as f64);
         let num: f64 = pts.iter().map(|p| (p.0 - mx) * (p.1 - my)).sum();
         num / pts.iter().map(|p| (p.0 - mx).powi(2)).sum::<f64>()
+    }
+
+    #[test]
+    fn the_object_moves_over_the_scene_and_stays_near_the_centre() {
+        let (scene, with) = (naturalistic(300, 50, 50, 4), scene_with_object(300, 50, 50, 4));
+        let mut centres = Vec::new();
+        for t in 0..300 {
+            let differs: Vec<(usize, usize)> =
+                (0..50 * 50).map(|i| (i / 50, i % 50)).filter(|&(r, c)| with[[t, r, c]] != scene[[t, r, c]]).collect();
+            // A disk of radius 4 to 10 pixels (some of its pixels may match the scene by chance).
+            assert!(differs.len() > 30 && differs.len() < 330, "frame {t}: {} pixels differ", differs.len());
+            let n = differs.len() as f64;
+            let (y, x) = differs.iter().fold((0.0, 0.0), |(a, b), &(r, c)| (a + r as f64 / n, b + c as f64 / n));
+            assert!((y - 25.0).abs() < 13.5 && (x - 25.0).abs() < 13.5, "frame {t}: object at {y:.1}, {x:.1}");
+            centres.push((y, x));
+        }
+        // It moves: over 300 frames its centre travels more than a few pixels.
+        let travel =
+            centres.windows(2).map(|w| ((w[1].0 - w[0].0).powi(2) + (w[1].1 - w[0].1).powi(2)).sqrt()).sum::<f64>();
+        assert!(travel > 10.0, "travel {travel}");
     }
 
     #[test]
