@@ -44,6 +44,7 @@ fn the_fitted_model_predicts_fresh_movies_with_r_of_at_least_0_8_per_cell() {
         .iter()
         .map(|(_, m)| (rates(&planted, m, &|_| {}).unwrap(), rates(&fitted, m, &|_| {}).unwrap()))
         .collect();
+    let mut short = Vec::new();
     for cell in 0..3 {
         let (mut a, mut b) = (Vec::new(), Vec::new());
         let mut each = Vec::new();
@@ -57,8 +58,12 @@ fn the_fitted_model_predicts_fresh_movies_with_r_of_at_least_0_8_per_cell() {
         }
         let r = correlation(&a, &b);
         eprintln!("cell {cell}: pooled r {r:.3} ({})", each.join(", "));
-        assert!(r >= 0.8, "cell {cell}: held-out r {r:.3} < 0.8 ({})", each.join(", "));
+        // Every cell is measured and printed before the verdict.
+        if r.is_nan() || r < 0.8 {
+            short.push(format!("cell {cell}: held-out r {r:.3} < 0.8 ({})", each.join(", ")));
+        }
     }
+    assert!(short.is_empty(), "{}", short.join("; "));
 }
 
 /// The metric `pick` of `protocol` (with `params`) on the planted and on the fitted model.
