@@ -181,11 +181,10 @@ impl Student {
             Tensor::from_shape_fn(IxDyn(&[CELLS]), |i| inverse_softplus(mean_rates[i[0]])),
         ];
         let per_cell = s.separate_cells.then_some((c1 / CELLS, c2 / CELLS));
-        let mut student = Student { factors, side, per_cell };
-        let mut factors = std::mem::take(&mut student.factors);
+        let student = Student { factors: Vec::new(), side, per_cell };
+        let mut factors = factors;
         student.mask(&mut factors);
-        student.factors = factors;
-        student
+        Student { factors, ..student }
     }
 
     /// Which cell owns row `row` (the first axis) of factor `factor`, when cells have their own
@@ -395,12 +394,12 @@ fn dataset(
     // often the reversal cell is driven depends on the image and on the axis of its motion
     // (which a reversal keeps), so one long movie swings from no event to many between draws
     // (numpy replica, 300 lines, 500 frames: above 1 in 0 % to 12.6 % of frames over 8 seeds).
+    let make = match image {
+        ReversalImage::Pink => reversing_texture,
+        ReversalImage::Lines => reversing_lines,
+    };
     for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {
         // Their own seed stream: seed + 3 is the next epoch's noise seed.
-        let make = match image {
-            ReversalImage::Pink => reversing_texture,
-            ReversalImage::Lines => reversing_lines,
-        };
         let frames = REVERSAL_CHUNK.min(reversal_frames - k * REVERSAL_CHUNK).max(LAGS + 1);
         movies.push(make(frames, SIZE, SIZE, seed.wrapping_add(1 << 32).wrapping_add((k as u64) << 40)));
     }
@@ -536,7 +535,7 @@ fn split_gradients(
 /// gradient 100 times the usual into a step up to about 30 times its step size (its second
 /// moment follows with weight 0.001), and the reversal cell's rare bursts give such gradients:
 /// without clipping they wrecked the features the other cells had begun to learn.
-/// Entries are clipped in groups (`group(factor, flat index)`, below `groups`), each with its
+/// Entries are clipped in groups (`group(factor, flat index)` in [`Clip::apply`]), each with its
 /// own bound: one group when cells share channels, one per cell when they do not.
 struct Clip {
     /// Running mean of each group's clipped norms (0 before the first batch).
@@ -723,6 +722,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     let weights = cell_weights(s.loss, &calibration);
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
     let mut report = |run: &Run, restart: Option<usize>, epoch: usize, (loss, cells): (f64, Vec<f64>)| {
+        // The held-out set always holds noise, flicker, scenes and the scene with object.
         let (pooled, by_kind) = correlations(&run.model, &heldout, 4)?;
         progress(&Epoch {
             number: epoch + 1,
@@ -739,7 +739,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         }
         Ok::<_, crate::Error>(pooled)
     };
-    let (first, chosen) = if s.restarts > 1 {
+    let (mut run, chosen, begin) = if s.restarts > 1 {
         let mut candidates = Vec::new();
         let mut scores = Vec::new();
         for k in 0..s.restarts {
@@ -758,12 +758,10 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
             student.take_cell(&candidates[k].student, cell);
         }
         let run0 = candidates.swap_remove(0);
-        (Run::resume(s, student, run0.rng, s.seed)?, chosen)
+        (Run::resume(s, student, run0.rng, s.seed)?, chosen, s.restart_epochs)
     } else {
-        (Run::start(s, s.seed, &calibration)?, vec![0; CELLS])
+        (Run::start(s, s.seed, &calibration)?, vec![0; CELLS], 0)
     };
-    let mut run = first;
-    let begin = if s.restarts > 1 { s.restart_epochs } else { 0 };
     for epoch in begin..s.epochs {
         let losses = run.epoch(s, &teacher, epoch, &weights)?;
         heldout_correlation = report(&run, None, epoch, losses)?;
