@@ -1,7 +1,7 @@
 //! `sufficit demo-models --out models/ [--fit]` (hidden, for maintainers): write the planted
 //! demo model and, with `--fit`, train the fitted demo model on it.
 
-use crate::demo::fit::{fit, FitSettings, ReversalImage};
+use crate::demo::fit::{fit, FitSettings, Hidden, ReversalImage};
 use crate::output::OutputDir;
 use crate::Result;
 use clap::Args;
@@ -64,6 +64,12 @@ pub struct DemoModelsArgs {
     /// Epochs of each restart before the choice (part of --epochs).
     #[arg(long, default_value_t = FitSettings::default().restart_epochs)]
     pub restart_epochs: usize,
+    /// Train only this cell (0, 1 or 2), all channels on it: to study one cell's fit quickly.
+    #[arg(long, value_name = "CELL")]
+    pub cell: Option<usize>,
+    /// The hidden layers' nonlinearity.
+    #[arg(long, value_enum, default_value_t = Hidden::Softplus)]
+    pub hidden: Hidden,
 }
 
 /// Parse `C1,C2`.
@@ -102,6 +108,8 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             separate_cells: a.separate_cells,
             restarts: a.restarts.max(1),
             restart_epochs: a.restart_epochs.min(a.epochs),
+            only_cell: a.cell,
+            hidden: a.hidden,
             ..Default::default()
         };
         let out = OutputDir::create(&a.out)?;

@@ -3,7 +3,8 @@
 //! and naturalistic movies, and judged on held-out movies. Reproducible from its seed.
 
 use super::movies::{
-    binary_noise, full_field_flicker, naturalistic, reversing_lines, reversing_texture, scene_with_object,
+    binary_noise, full_field_flicker, naturalistic, reversing_bars, reversing_lines, reversing_texture,
+    scene_with_object,
 };
 use super::planted::{synthetic_sensor, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
@@ -69,6 +70,11 @@ pub struct FitSettings {
     pub restarts: usize,
     /// Epochs each restart trains before the choice (they count towards `epochs`).
     pub restart_epochs: usize,
+    /// Train only this cell (the others get loss weight 0 and stay untrained): a quick way to
+    /// study one cell's fit with all channels on it.
+    pub only_cell: Option<usize>,
+    /// The hidden layers' nonlinearity.
+    pub hidden: Hidden,
 }
 
 impl Default for FitSettings {
@@ -91,6 +97,29 @@ impl Default for FitSettings {
             separate_cells: false,
             restarts: 1,
             restart_epochs: 5,
+            only_cell: None,
+            hidden: Hidden::Softplus,
+        }
+    }
+}
+
+/// The nonlinearity of the student's two hidden layers (its output is always softplus).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, clap::ValueEnum)]
+#[serde(rename_all = "kebab-case")]
+pub enum Hidden {
+    /// Smooth rectification, `ln(1 + e^x)`: its bend is one unit wide, so a sharp threshold
+    /// needs large weights.
+    Softplus,
+    /// Rectification, `max(0, x)`: a sharp threshold at any weight scale.
+    Relu,
+}
+
+impl Hidden {
+    /// The ONNX operator.
+    fn op(self) -> &'static str {
+        match self {
+            Hidden::Softplus => "Softplus",
+            Hidden::Relu => "Relu",
         }
     }
 }
@@ -103,6 +132,8 @@ pub enum ReversalImage {
     Pink,
     /// Thin lines on gray ([`reversing_lines`]).
     Lines,
+    /// Parallel bars on gray ([`reversing_bars`]).
+    Bars,
 }
 
 /// How the fit went.
@@ -155,6 +186,8 @@ struct Student {
     /// Channels per cell in the two layers, when each cell has its own (see
     /// [`FitSettings::separate_cells`]).
     per_cell: Option<(usize, usize)>,
+    /// The hidden layers' nonlinearity.
+    hidden: Hidden,
 }
 
 impl Student {
@@ -181,7 +214,7 @@ impl Student {
             Tensor::from_shape_fn(IxDyn(&[CELLS]), |i| inverse_softplus(mean_rates[i[0]])),
         ];
         let per_cell = s.separate_cells.then_some((c1 / CELLS, c2 / CELLS));
-        let student = Student { factors: Vec::new(), side, per_cell };
+        let student = Student { factors: Vec::new(), side, per_cell, hidden: s.hidden };
         let mut factors = factors;
         student.mask(&mut factors);
         Student { factors, ..student }
@@ -330,9 +363,9 @@ impl Student {
 
     /// Everything after conv1 (shared by both graphs).
     fn rest(&self, mut m: OnnxBuilder, w2: &Tensor, b2: &Tensor) -> tract_onnx::pb::ModelProto {
-        m.node("Softplus", &["conv1"], "layer1", vec![]);
+        m.node(self.hidden.op(), &["conv1"], "layer1", vec![]);
         m.conv("layer1", "conv2", w2, b2);
-        m.node("Softplus", &["conv2"], "layer2", vec![]);
+        m.node(self.hidden.op(), &["conv2"], "layer2", vec![]);
         m.dense("layer2", "readout", &self.readout(), &self.factors[7]);
         m.node("Softplus", &["readout"], "rates", vec![]);
         m.finish("rates", "synthetic sensor (fitted CNN)")
@@ -397,6 +430,7 @@ fn dataset(
     let make = match image {
         ReversalImage::Pink => reversing_texture,
         ReversalImage::Lines => reversing_lines,
+        ReversalImage::Bars => reversing_bars,
     };
     for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {
         // Their own seed stream: seed + 3 is the next epoch's noise seed.
@@ -692,6 +726,15 @@ fn best_candidates(r: &[Vec<f64>], separate: bool) -> Vec<usize> {
     }
 }
 
+/// Which candidate each cell keeps (see [`best_candidates`]); when only cell `only` is
+/// trained, the candidate best for that cell, for every cell.
+fn choose(r: &[Vec<f64>], separate: bool, only: Option<usize>) -> Vec<usize> {
+    match only {
+        Some(k) => vec![best_candidates(r, true)[k]; CELLS],
+        None => best_candidates(r, separate),
+    }
+}
+
 /// Fit the CNN; `progress` is called after each epoch.
 /// Every epoch trains on fresh movies (the planted model gives unlimited data); the held-out
 /// movies are never trained on. With restarts, `restarts` students from consecutive seeds train
@@ -707,6 +750,12 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
             s.channels.0, s.channels.1
         )));
     }
+    if let Some(k) = s.only_cell.filter(|&k| k >= CELLS) {
+        return Err(crate::Error::Usage(format!(
+            "fit: --cell {k} names no cell (the sensor has cells 0 to {})",
+            CELLS - 1
+        )));
+    }
     let teacher = planted()?;
     let h = s.heldout_frames;
     let heldout = dataset(&teacher, (h, h), (h, s.reversal_image), s.seed.wrapping_mul(1000) + 500)?;
@@ -719,7 +768,10 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         (calibration_reversal, s.reversal_image),
         s.seed.wrapping_mul(1000) + 700,
     )?;
-    let weights = cell_weights(s.loss, &calibration);
+    let mut weights = cell_weights(s.loss, &calibration);
+    if let Some(k) = s.only_cell {
+        weights.iter_mut().enumerate().filter(|&(c, _)| c != k).for_each(|(_, w)| *w = 0.0);
+    }
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
     let mut report = |run: &Run, restart: Option<usize>, epoch: usize, (loss, cells): (f64, Vec<f64>)| {
         // The held-out set always holds noise, flicker, scenes and the scene with object.
@@ -752,7 +804,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
             candidates.push(run);
             scores.push(r);
         }
-        let chosen = best_candidates(&scores, s.separate_cells);
+        let chosen = choose(&scores, s.separate_cells, s.only_cell);
         let mut student = candidates[chosen[0]].student.clone();
         for (cell, &k) in chosen.iter().enumerate() {
             student.take_cell(&candidates[k].student, cell);
@@ -783,17 +835,33 @@ mod tests {
     use super::*;
 
     #[test]
+    fn a_fit_of_one_cell_keeps_the_restart_best_for_that_cell_and_refuses_a_missing_cell() {
+        let r = vec![vec![0.9, 0.1, 0.5], vec![0.2, 0.7, 0.6]];
+        assert_eq!(choose(&r, false, Some(1)), vec![1, 1, 1]);
+        assert_eq!(choose(&r, false, Some(0)), vec![0, 0, 0]);
+        assert_eq!(choose(&r, true, None), vec![0, 1, 1]);
+        let e = fit(&FitSettings { only_cell: Some(3), ..Default::default() }, &|_| {}).err().unwrap().to_string();
+        assert!(e.contains("--cell 3 names no cell") && e.contains("cells 0 to 2"), "{e}");
+    }
+
+    #[test]
     fn the_shipped_graph_computes_what_the_training_graph_computes() {
         // The shipped model's full Conv and Gemm weights are the sums of products of the
         // factors the fit trains: both graphs must give the same rates.
-        let s = FitSettings { channels: (3, 2), ..Default::default() };
-        let student = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(3));
-        let load = |p| Model::from_proto(p, Path::new("student.onnx"), &LoadOptions::default()).unwrap();
-        let (training, shipped) = (load(student.training_proto()), load(student.proto()));
-        let movie = naturalistic(LAGS + 4, SIZE, SIZE, 9);
-        let (a, b) = (rates(&training, &movie, &|_| {}).unwrap(), rates(&shipped, &movie, &|_| {}).unwrap());
-        let worst = a.iter().zip(&b).map(|(x, y)| (x - y).abs()).fold(0.0f32, f32::max);
-        assert!(worst < 1e-4, "largest difference {worst}");
+        // Both hidden nonlinearities, and the shipped graph names the chosen one.
+        for hidden in [Hidden::Softplus, Hidden::Relu] {
+            let s = FitSettings { channels: (3, 2), hidden, ..Default::default() };
+            let student = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(3));
+            let load = |p| Model::from_proto(p, Path::new("student.onnx"), &LoadOptions::default()).unwrap();
+            let proto = student.proto();
+            let ops: Vec<&str> = proto.graph.as_ref().unwrap().node.iter().map(|n| n.op_type.as_str()).collect();
+            assert_eq!(ops.iter().filter(|&&o| o == hidden.op()).count(), if hidden == Hidden::Relu { 2 } else { 3 });
+            let (training, shipped) = (load(student.training_proto()), load(proto));
+            let movie = naturalistic(LAGS + 4, SIZE, SIZE, 9);
+            let (a, b) = (rates(&training, &movie, &|_| {}).unwrap(), rates(&shipped, &movie, &|_| {}).unwrap());
+            let worst = a.iter().zip(&b).map(|(x, y)| (x - y).abs()).fold(0.0f32, f32::max);
+            assert!(worst < 1e-4, "{hidden:?}: largest difference {worst}");
+        }
     }
 
     #[test]

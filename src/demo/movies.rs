@@ -176,6 +176,50 @@ pub fn reversing_lines(frames: usize, height: usize, width: usize, seed: u64) ->
     reversing_view(&image, frames, height, width, &mut rng)
 }
 
+/// Parallel bars (see [`bar_image`]) moving across their length and now and then reversing
+/// (the segments of [`reversing_texture`], 0.1 to 0.4 pixels per frame): the moving bars of the
+/// classic direction and reversal protocols, at one of eight orientations per movie.
+pub fn reversing_bars(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let size = 4 * height.max(width).next_power_of_two();
+    let (image, (a, b)) = bar_image(size, &mut rng);
+    // Across the bars: the image's value depends on `a x + b y`, so its normal is (b, a) in
+    // (down, right) order.
+    let norm = ((a * a + b * b) as f64).sqrt();
+    let across = |rng: &mut ChaCha8Rng| {
+        let speed = rng.random_range(0.1..0.4) * if rng.random_range(0..2) == 0 { -1.0 } else { 1.0 };
+        (speed * b as f64 / norm, speed * a as f64 / norm)
+    };
+    moving_view(&image, frames, (height, width), &across, &mut rng)
+}
+
+/// A periodic `size x size` gray image of parallel bars, 1 to 3 pixels wide with gaps of 6 to
+/// 30 pixels, each bright or dark at a contrast of 0.5 to 1. The bars' normal `(a, b)` is one
+/// of eight integer directions (0, 45, 90, 135 degrees and the four in between at slopes of
+/// 1/2 and 2), so the stripes wrap seamlessly on the torus: the across-bar coordinate is
+/// `(a x + b y) mod size`, a bar of width `w` spanning `w * |(a, b)|` of it.
+/// Returns the image and its normal `(a, b)`.
+pub fn bar_image(size: usize, rng: &mut ChaCha8Rng) -> (Array2<f32>, (i64, i64)) {
+    const NORMALS: [(i64, i64); 8] = [(1, 0), (0, 1), (1, 1), (1, -1), (2, 1), (1, 2), (2, -1), (1, -2)];
+    let (a, b) = NORMALS[rng.random_range(0..NORMALS.len())];
+    let norm = ((a * a + b * b) as f64).sqrt();
+    // The across-bar coordinate runs over `size` units; one pixel across the bars is `norm` units.
+    let mut profile = vec![0.0f32; size];
+    let mut at = rng.random_range(0.0..6.0 * norm);
+    while at < size as f64 {
+        let width = rng.random_range(1.0..3.0) * norm;
+        let sign = if rng.random_range(0..2) == 0 { -1.0 } else { 1.0 };
+        let contrast = (sign * rng.random_range(0.5..1.0)) as f32;
+        let span = (at.floor() as usize)..((at + width).ceil() as usize).min(size);
+        profile[span].iter_mut().for_each(|v| *v = contrast);
+        at += width + rng.random_range(6.0..30.0) * norm;
+    }
+    let image = Array2::from_shape_fn((size, size), |(y, x)| {
+        profile[(a * x as i64 + b * y as i64).rem_euclid(size as i64) as usize]
+    });
+    (image, (a, b))
+}
+
 /// Line segments in the image of [`reversing_lines`]: about a third of a 13 x 13 pixel patch
 /// then holds a line (60 lines left most frames' centre empty).
 const LINES: usize = 300;
@@ -215,11 +259,24 @@ fn reversing_view(
     width: usize,
     rng: &mut ChaCha8Rng,
 ) -> Array3<f32> {
-    let size = image.nrows();
-    let velocity = |rng: &mut ChaCha8Rng| {
+    let any_direction = |rng: &mut ChaCha8Rng| {
         let (speed, angle) = (rng.random_range(0.1..0.4), rng.random_range(0.0..std::f64::consts::TAU));
         (speed * angle.sin(), speed * angle.cos())
     };
+    moving_view(image, frames, (height, width), &any_direction, rng)
+}
+
+/// A view of the periodic `image` moving at constant velocities drawn by `velocity` (pixels per
+/// frame, `(down, right)`), each held 15 to 60 frames; at a segment's end the motion reverses
+/// (probability 0.7) or takes a new velocity.
+fn moving_view(
+    image: &Array2<f32>,
+    frames: usize,
+    (height, width): (usize, usize),
+    velocity: &dyn Fn(&mut ChaCha8Rng) -> (f64, f64),
+    rng: &mut ChaCha8Rng,
+) -> Array3<f32> {
+    let size = image.nrows();
     let (mut y, mut x) = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
     let mut v = velocity(rng);
     let mut left = rng.random_range(15..=60);
@@ -385,6 +442,26 @@ mod tests {
         assert!((150..=250).contains(&changes), "{changes} changes");
         let sd = (m.iter().map(|v| v * v).sum::<f32>() / m.len() as f32).sqrt();
         assert!((sd - 0.35).abs() < 0.06, "s.d. {sd}");
+    }
+
+    #[test]
+    fn bar_images_hold_parallel_bars_that_wrap_seamlessly() {
+        for seed in 0..8 {
+            let (image, _) = bar_image(256, &mut ChaCha8Rng::seed_from_u64(seed));
+            let lit = image.iter().filter(|&&v| v != 0.0).count() as f64 / image.len() as f64;
+            assert!(lit > 0.02 && lit < 0.5, "seed {seed}: {lit:.3} of the image on bars");
+            assert!(image.iter().all(|&v| v == 0.0 || (0.5..=1.0).contains(&v.abs())), "seed {seed}: contrasts");
+            // Parallel bars: some shift (one of the eight directions along the bars) maps the
+            // image onto itself, the torus' wrap included.
+            let along = [(0, 1), (1, 0), (1, -1), (1, 1), (2, -1), (1, -2), (2, 1), (1, 2)];
+            let invariant = along.iter().any(|&(dy, dx): &(i64, i64)| {
+                image.indexed_iter().all(|((y, x), &v)| {
+                    let (yy, xx) = ((y as i64 + dy).rem_euclid(256) as usize, (x as i64 + dx).rem_euclid(256) as usize);
+                    image[[yy, xx]] == v
+                })
+            });
+            assert!(invariant, "seed {seed}: not parallel bars");
+        }
     }
 
     #[test]
