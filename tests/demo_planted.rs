@@ -79,9 +79,10 @@ fn the_reversal_cell_alone_responds_at_motion_reversal() {
     assert!(ratio(0) < 1.5 && ratio(2) < 1.5, "others: {} {}", ratio(0), ratio(2));
 }
 
-/// The planted sensor with its two hidden ReLU layers replaced by softplus, the first two
-/// layers' weights and biases multiplied by `k` and the readout's weights divided by it:
-/// `softplus(k x) / k`, a rectifier whose bend is `1 / k` wide.
+/// The planted sensor with its two hidden ReLU layers replaced by softplus, the first layer's
+/// weights and bias and the second layer's bias multiplied by `k` (the second layer's weights
+/// then see inputs `k` times larger) and the readout's weights divided by it: each hidden unit
+/// becomes `softplus(k x) / k`, a rectifier whose bend is `1 / k` wide.
 fn softplus_copy(k: f32) -> Model {
     let mut proto = synthetic_sensor();
     let graph = proto.graph.as_mut().unwrap();

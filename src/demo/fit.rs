@@ -203,7 +203,7 @@ impl Student {
             Tensor::from_shape_fn(IxDyn(dims), |_| rng.random_range(-scale..scale))
         };
         // Products of the factors start at the usual 1 / sqrt(fan-in) scale.
-        let factors = vec![
+        let mut factors = vec![
             t(&[c1 * RANK, LAGS, 1, 1], LAGS),
             t(&[c1, RANK, k1, k1], RANK * k1 * k1),
             Tensor::zeros(IxDyn(&[c1])),
@@ -215,7 +215,6 @@ impl Student {
         ];
         let per_cell = s.separate_cells.then_some((c1 / CELLS, c2 / CELLS));
         let student = Student { factors: Vec::new(), side, per_cell, hidden: s.hidden };
-        let mut factors = factors;
         student.mask(&mut factors);
         Student { factors, ..student }
     }
@@ -334,7 +333,7 @@ impl Student {
                 if sd > 0.0 {
                     let k = (INIT_SD / sd) as f32;
                     self.factors[factor].index_axis_mut(Axis(0), c).mapv_inplace(|w| w * k);
-                    // Centre the channel so it starts where softplus bends.
+                    // Centre the channel so it starts where its nonlinearity bends.
                     self.factors[factor + 1][[c]] -= (mean * INIT_SD / sd) as f32;
                 }
             }

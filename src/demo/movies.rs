@@ -187,10 +187,19 @@ pub fn reversing_bars(frames: usize, height: usize, width: usize, seed: u64) -> 
     // (down, right) order.
     let norm = ((a * a + b * b) as f64).sqrt();
     let across = |rng: &mut ChaCha8Rng| {
-        let speed = rng.random_range(0.1..0.4) * if rng.random_range(0..2) == 0 { -1.0 } else { 1.0 };
+        let speed = rng.random_range(0.1..0.4) * random_sign(rng);
         (speed * b as f64 / norm, speed * a as f64 / norm)
     };
     moving_view(&image, frames, (height, width), &across, &mut rng)
+}
+
+/// -1 or +1 with equal probability.
+fn random_sign(rng: &mut ChaCha8Rng) -> f64 {
+    if rng.random_range(0..2) == 0 {
+        -1.0
+    } else {
+        1.0
+    }
 }
 
 /// A periodic `size x size` gray image of parallel bars, 1 to 3 pixels wide with gaps of 6 to
@@ -208,7 +217,7 @@ pub fn bar_image(size: usize, rng: &mut ChaCha8Rng) -> (Array2<f32>, (i64, i64))
     let mut at = rng.random_range(0.0..6.0 * norm);
     while at < size as f64 {
         let width = rng.random_range(1.0..3.0) * norm;
-        let sign = if rng.random_range(0..2) == 0 { -1.0 } else { 1.0 };
+        let sign = random_sign(rng);
         let contrast = (sign * rng.random_range(0.5..1.0)) as f32;
         let span = (at.floor() as usize)..((at + width).ceil() as usize).min(size);
         profile[span].iter_mut().for_each(|v| *v = contrast);
@@ -234,7 +243,7 @@ pub fn line_image(size: usize, lines: usize, rng: &mut ChaCha8Rng) -> Array2<f32
         let (cy, cx) = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
         let angle = rng.random_range(0.0..std::f64::consts::PI);
         let (width, length) = (rng.random_range(1.0..3.0), rng.random_range(20.0..80.0));
-        let sign = if rng.random_range(0..2) == 0 { -1.0 } else { 1.0 };
+        let sign = random_sign(rng);
         let contrast = (sign * rng.random_range(0.5..1.0)) as f32;
         for ((y, x), v) in image.indexed_iter_mut() {
             // Offsets on the torus, then across and along the line.
@@ -308,8 +317,7 @@ pub fn binary_noise(
     let (gh, gw) = (height.div_ceil(checker), width.div_ceil(checker));
     let mut movie = Array3::zeros((frames, height, width));
     for t in 0..frames {
-        let grid: Vec<f32> =
-            (0..gh * gw).map(|_| if rng.random_range(0..2) == 0 { -contrast } else { contrast }).collect();
+        let grid: Vec<f32> = (0..gh * gw).map(|_| contrast * random_sign(&mut rng) as f32).collect();
         for r in 0..height {
             for c in 0..width {
                 movie[[t, r, c]] = grid[(r / checker) * gw + c / checker];
