@@ -70,6 +70,25 @@ pub struct DemoModelsArgs {
     /// The hidden layers' nonlinearity.
     #[arg(long, value_enum, default_value_t = Hidden::Softplus)]
     pub hidden: Hidden,
+    /// After --epochs, train this cell's own channels alone (needs --separate-cells).
+    #[arg(long, value_name = "CELL")]
+    pub finish_cell: Option<usize>,
+    /// Epochs of the --finish-cell phase.
+    #[arg(long, default_value_t = FitSettings::default().finish_epochs)]
+    pub finish_epochs: usize,
+    /// Frames of each of binary noise, flicker and naturalistic movie per --finish-cell epoch.
+    #[arg(long, default_value_t = FitSettings::default().finish_train_frames)]
+    pub finish_train_frames: usize,
+    /// Clip each batch's gradient at this many running means of recent gradient norms (0: no
+    /// clipping).
+    #[arg(long, default_value_t = FitSettings::default().clip)]
+    pub clip: f64,
+    /// Train this many epochs on each draw of movies (1: fresh movies every epoch).
+    #[arg(long, default_value_t = FitSettings::default().movies_every)]
+    pub movies_every: usize,
+    /// Give every batch an equal share of the strongest responses (stratified batches).
+    #[arg(long)]
+    pub stratify: bool,
 }
 
 /// Parse `C1,C2`.
@@ -110,6 +129,12 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             restart_epochs: a.restart_epochs.min(a.epochs),
             only_cell: a.cell,
             hidden: a.hidden,
+            finish_cell: a.finish_cell,
+            finish_epochs: a.finish_epochs,
+            finish_train_frames: a.finish_train_frames,
+            clip: a.clip,
+            movies_every: a.movies_every.max(1),
+            stratify: a.stratify,
             ..Default::default()
         };
         let out = OutputDir::create(&a.out)?;

@@ -3,8 +3,8 @@
 //! and naturalistic movies, and judged on held-out movies. Reproducible from its seed.
 
 use super::movies::{
-    binary_noise, full_field_flicker, naturalistic, reversing_bars, reversing_lines, reversing_texture,
-    scene_with_object,
+    binary_noise, full_field_flicker, naturalistic, reversing_bars, reversing_checkers, reversing_lines,
+    reversing_texture, scene_with_object,
 };
 use super::planted::{synthetic_sensor, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
@@ -13,7 +13,7 @@ use crate::model::{LoadOptions, Model};
 use crate::response::measure::correlation;
 use crate::response::{rates, windows_at};
 use crate::{Result, Tensor};
-use ndarray::{concatenate, Array2, Array3, Axis, IxDyn};
+use ndarray::{concatenate, Array2, Array3, Axis, IxDyn, Slice};
 use rand::rngs::ChaCha8Rng;
 use rand::seq::SliceRandom;
 use rand::{RngExt, SeedableRng};
@@ -75,6 +75,27 @@ pub struct FitSettings {
     pub only_cell: Option<usize>,
     /// The hidden layers' nonlinearity.
     pub hidden: Hidden,
+    /// After `epochs`, train this cell's channels alone for `finish_epochs` more (needs
+    /// `separate_cells`): a cell that learns slower than the others gets the time without
+    /// paying for the others' channels.
+    pub finish_cell: Option<usize>,
+    /// Epochs of the finishing phase (see `finish_cell`), with their own step decay.
+    pub finish_epochs: usize,
+    /// Frames of each of binary noise, flicker and naturalistic movie per finishing epoch (the
+    /// object and reversing movies keep their counts).
+    pub finish_train_frames: usize,
+    /// Gradient clipping bound, in running means of recent gradient norms (see [`Clip`]); 0
+    /// turns clipping off.
+    pub clip: f64,
+    /// Epochs that train on one draw of movies (1: fresh movies every epoch). The planted
+    /// sensor's rates on the movies are a large part of an epoch's time, so reusing each draw
+    /// for a few epochs buys epochs.
+    pub movies_every: usize,
+    /// Deal each epoch's windows into batches so that every batch holds an equal share of the
+    /// strongest responses (stratified sampling, common practice for variance reduction): a
+    /// sparse cell's bursts then reach every step in equal measure instead of a few steps in
+    /// large blows, which Adam turns into large, erratic steps.
+    pub stratify: bool,
 }
 
 impl Default for FitSettings {
@@ -99,6 +120,12 @@ impl Default for FitSettings {
             restart_epochs: 5,
             only_cell: None,
             hidden: Hidden::Softplus,
+            finish_cell: None,
+            finish_epochs: 0,
+            finish_train_frames: 500,
+            clip: 3.0,
+            movies_every: 1,
+            stratify: false,
         }
     }
 }
@@ -134,6 +161,8 @@ pub enum ReversalImage {
     Lines,
     /// Parallel bars on gray ([`reversing_bars`]).
     Bars,
+    /// A binary checkerboard ([`reversing_checkers`]).
+    Checkers,
 }
 
 /// How the fit went.
@@ -259,6 +288,52 @@ impl Student {
                 }
             }
         }
+    }
+
+    /// Cell `cell`'s channels alone, as a student with shared channels (`per_cell` channels in
+    /// each layer; every cell's readout row, those of the other cells without features): train
+    /// it with the other cells' loss weights at zero, then [`Student::put_cell`] it back.
+    fn cell_part(&self, cell: usize) -> Result<Student> {
+        let (g1, g2) =
+            self.per_cell.ok_or_else(|| crate::Error::Usage("fit: --finish-cell needs --separate-cells".into()))?;
+        let f = &self.factors;
+        let rows = |t: &Tensor, n: usize| t.slice_axis(Axis(0), Slice::from(cell * n..(cell + 1) * n)).to_owned();
+        let conv2 = rows(&f[3], g2).slice_axis(Axis(1), Slice::from(cell * g1..(cell + 1) * g1)).to_owned();
+        let mut features = Tensor::zeros(IxDyn(&[CELLS, g2]));
+        features
+            .index_axis_mut(Axis(0), cell)
+            .assign(&f[6].index_axis(Axis(0), cell).slice_axis(Axis(0), Slice::from(cell * g2..(cell + 1) * g2)));
+        let factors = vec![
+            rows(&f[0], g1 * RANK),
+            rows(&f[1], g1),
+            rows(&f[2], g1),
+            conv2,
+            rows(&f[4], g2),
+            f[5].clone(),
+            features,
+            f[7].clone(),
+        ];
+        Ok(Student { factors, side: self.side, per_cell: None, hidden: self.hidden })
+    }
+
+    /// Put back cell `cell`'s channels and readout row from `part` (see [`Student::cell_part`]).
+    fn put_cell(&mut self, cell: usize, part: &Student) {
+        let Some((g1, g2)) = self.per_cell else { return };
+        let p = &part.factors;
+        for (f, n) in [(0, g1 * RANK), (1, g1), (2, g1), (4, g2)] {
+            self.factors[f].slice_axis_mut(Axis(0), Slice::from(cell * n..(cell + 1) * n)).assign(&p[f]);
+        }
+        self.factors[3]
+            .slice_axis_mut(Axis(0), Slice::from(cell * g2..(cell + 1) * g2))
+            .slice_axis_mut(Axis(1), Slice::from(cell * g1..(cell + 1) * g1))
+            .assign(&p[3]);
+        for f in [5, 7] {
+            self.factors[f].index_axis_mut(Axis(0), cell).assign(&p[f].index_axis(Axis(0), cell));
+        }
+        self.factors[6]
+            .index_axis_mut(Axis(0), cell)
+            .slice_axis_mut(Axis(0), Slice::from(cell * g2..(cell + 1) * g2))
+            .assign(&p[6].index_axis(Axis(0), cell));
     }
 
     /// The clipping group of entry `flat` of factor `factor`: its cell when cells have their
@@ -430,6 +505,7 @@ fn dataset(
         ReversalImage::Pink => reversing_texture,
         ReversalImage::Lines => reversing_lines,
         ReversalImage::Bars => reversing_bars,
+        ReversalImage::Checkers => reversing_checkers,
     };
     for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {
         // Their own seed stream: seed + 3 is the next epoch's noise seed.
@@ -562,7 +638,7 @@ fn split_gradients(
     }))
 }
 
-/// Gradient clipping against bursts: a batch whose gradient norm exceeds [`Clip::FACTOR`] times
+/// Gradient clipping against bursts: a batch whose gradient norm exceeds `factor` times
 /// the running mean of recent (clipped) norms is scaled down to that bound (norm clipping:
 /// Pascanu, Mikolov & Bengio, ICML 2013; the adaptive bound is ours). Adam alone turns one
 /// gradient 100 times the usual into a step up to about 30 times its step size (its second
@@ -573,15 +649,15 @@ fn split_gradients(
 struct Clip {
     /// Running mean of each group's clipped norms (0 before the first batch).
     mean: Vec<f64>,
+    /// Bound, in running means (infinite: no clipping).
+    factor: f64,
 }
 
 impl Clip {
-    /// Bound, in running means.
-    const FACTOR: f64 = 3.0;
-
-    /// Fresh state for `groups` groups.
-    fn new(groups: usize) -> Clip {
-        Clip { mean: vec![0.0; groups] }
+    /// Fresh state for `groups` groups, bounding norms at `factor` running means (0 or less: no
+    /// clipping).
+    fn new(groups: usize, factor: f64) -> Clip {
+        Clip { mean: vec![0.0; groups], factor: if factor > 0.0 { factor } else { f64::INFINITY } }
     }
 
     /// Clip `grads` in place, group by group.
@@ -598,7 +674,7 @@ impl Clip {
             if !(norm > 0.0 && norm.is_finite()) {
                 continue;
             }
-            let bound = if *mean > 0.0 { Self::FACTOR * *mean } else { norm };
+            let bound = if *mean > 0.0 { self.factor * *mean } else { norm };
             if norm > bound {
                 scale[k] = (bound / norm) as f32;
             }
@@ -633,6 +709,9 @@ pub struct Epoch {
     pub model: tract_onnx::pb::ModelProto,
 }
 
+/// Movies with the planted sensor's rates on them `[frames, cells]`.
+type Movies = Vec<(Array3<f32>, Array2<f32>)>;
+
 /// One fit in progress: the student, its training graph and its optimiser's state.
 struct Run {
     student: Student,
@@ -643,6 +722,8 @@ struct Run {
     rng: ChaCha8Rng,
     /// Seed of the training movies.
     seed: u64,
+    /// The latest draw of training movies and its key (seed, reversing frames).
+    movies: Option<((u64, usize), Movies)>,
 }
 
 impl Run {
@@ -664,8 +745,21 @@ impl Run {
             .collect::<Result<_>>()?;
         let shapes: Vec<Vec<usize>> = student.factors.iter().map(|t| t.shape().to_vec()).collect();
         let adam = Adam::new(&shapes, s.lr);
-        let clip = Clip::new(if s.separate_cells { CELLS } else { 1 });
-        Ok(Run { student, model, ids, adam, clip, rng, seed })
+        let clip = Clip::new(if s.separate_cells { CELLS } else { 1 }, s.clip);
+        Ok(Run { student, model, ids, adam, clip, rng, seed, movies: None })
+    }
+
+    /// Write the student's factors into the training graph's parameters.
+    fn sync(&mut self) -> Result<()> {
+        for (&id, t) in self.ids.iter().zip(self.student.trained()) {
+            let slot = self
+                .model
+                .graph
+                .param_mut(id)
+                .ok_or_else(|| crate::Error::Usage("fit: a student parameter is not a graph parameter".into()))?;
+            *slot = t;
+        }
+        Ok(())
     }
 
     /// Train epoch `epoch` (from 0) on fresh movies; returns the mean loss, overall and per cell.
@@ -674,17 +768,21 @@ impl Run {
             self.adam.lr = s.lr / 5.0;
         }
         let reversal = if epoch as f64 >= s.reversal_from * s.epochs as f64 { s.reversal_frames } else { 0 };
-        let train = dataset(
-            teacher,
-            (s.train_frames, s.object_frames),
-            (reversal, s.reversal_image),
-            self.seed.wrapping_mul(1000) + 10 + 3 * epoch as u64,
-        )?;
+        let key = (movie_seed(self.seed, epoch, s.movies_every), reversal);
+        let train = match self.movies.take() {
+            Some((k, movies)) if k == key => movies,
+            _ => dataset(teacher, (s.train_frames, s.object_frames), (reversal, s.reversal_image), key.0)?,
+        };
         let mut windows: Vec<(usize, usize)> =
             train.iter().enumerate().flat_map(|(i, (m, _))| (LAGS - 1..m.shape()[0]).map(move |t| (i, t))).collect();
         windows.shuffle(&mut self.rng);
+        let batches = if s.stratify {
+            stratified(&windows, &train, weights, s.batch, &mut self.rng)
+        } else {
+            windows.chunks(s.batch.max(1)).map(|b| b.to_vec()).collect()
+        };
         let (mut total, mut cells, mut steps) = (0.0, vec![0.0; CELLS], 0);
-        for batch in windows.chunks(s.batch) {
+        for batch in &batches {
             crate::interrupt::check()?;
             let (loss, per_cell, full) = split_gradients(&self.model, &self.ids, &train, batch, (s.loss, weights))?;
             let mut grads = self.student.chain(full);
@@ -695,20 +793,47 @@ impl Run {
                 let mut refs: Vec<&mut Tensor> = self.student.factors.iter_mut().collect();
                 self.adam.step(&mut refs, &grads);
             }
-            for (&id, t) in self.ids.iter().zip(self.student.trained()) {
-                let slot =
-                    self.model.graph.param_mut(id).ok_or_else(|| {
-                        crate::Error::Usage("fit: a student parameter is not a graph parameter".into())
-                    })?;
-                *slot = t;
-            }
+            self.sync()?;
             total += loss;
             cells.iter_mut().zip(per_cell).for_each(|(a, v)| *a += v);
             steps += 1;
         }
+        self.movies = Some((key, train));
         let n = steps.max(1) as f64;
         Ok((total / n, cells.iter().map(|c| c / n).collect()))
     }
+}
+
+/// Seed of the training movies of epoch `epoch` (from 0) of a fit seeded `seed` that draws new
+/// movies every `every` epochs (with `every` = 1, the seeds of every earlier fit).
+fn movie_seed(seed: u64, epoch: usize, every: usize) -> u64 {
+    seed.wrapping_mul(1000) + 10 + 3 * (epoch / every.max(1)) as u64
+}
+
+/// `windows` (movie, frame) dealt into batches of about `batch` that each hold an equal share
+/// of the strongest responses: ranked by their largest weighted rate over the trained cells
+/// (weight > 0), dealt round-robin, each batch shuffled. Every window lands in exactly one batch.
+fn stratified(
+    windows: &[(usize, usize)],
+    data: &[(Array3<f32>, Array2<f32>)],
+    weights: &[f32],
+    batch: usize,
+    rng: &mut ChaCha8Rng,
+) -> Vec<Vec<(usize, usize)>> {
+    let score = |&(i, t): &(usize, usize)| {
+        let r = data[i].1.row(t);
+        weights.iter().zip(r.iter()).filter(|(w, _)| **w > 0.0).map(|(w, v)| w * v).fold(f32::MIN, f32::max)
+    };
+    let mut ranked: Vec<((usize, usize), f32)> = windows.iter().map(|w| (*w, score(w))).collect();
+    ranked.sort_by(|a, b| b.1.total_cmp(&a.1));
+    let batches = windows.len().div_ceil(batch.max(1));
+    let mut dealt: Vec<Vec<(usize, usize)>> = vec![Vec::new(); batches];
+    for (k, (w, _)) in ranked.into_iter().enumerate() {
+        dealt[k % batches].push(w);
+    }
+    dealt.iter_mut().for_each(|b| b.shuffle(rng));
+    dealt.shuffle(rng);
+    dealt
 }
 
 /// For each cell, the candidate whose held-out correlation for that cell is highest (`r[k][c]`:
@@ -749,11 +874,18 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
             s.channels.0, s.channels.1
         )));
     }
-    if let Some(k) = s.only_cell.filter(|&k| k >= CELLS) {
-        return Err(crate::Error::Usage(format!(
-            "fit: --cell {k} names no cell (the sensor has cells 0 to {})",
-            CELLS - 1
-        )));
+    for (option, cell) in [("--cell", s.only_cell), ("--finish-cell", s.finish_cell)] {
+        if let Some(k) = cell.filter(|&k| k >= CELLS) {
+            return Err(crate::Error::Usage(format!(
+                "fit: {option} {k} names no cell (the sensor has cells 0 to {})",
+                CELLS - 1
+            )));
+        }
+    }
+    if s.finish_cell.is_some() && !s.separate_cells {
+        return Err(crate::Error::Usage(
+            "fit: --finish-cell trains one cell's own channels, so it needs --separate-cells".into(),
+        ));
     }
     let teacher = planted()?;
     let h = s.heldout_frames;
@@ -817,6 +949,31 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         let losses = run.epoch(s, &teacher, epoch, &weights)?;
         heldout_correlation = report(&run, None, epoch, losses)?;
     }
+    if let Some(cell) = s.finish_cell {
+        // The finishing phase: the cell's channels alone, on fresh movies numbered after the
+        // main epochs', with the same step decay within the phase.
+        let part = run.student.cell_part(cell)?;
+        let total = s.epochs + s.finish_epochs;
+        let f = FitSettings {
+            channels: (part.factors[1].shape()[0], part.factors[3].shape()[0]),
+            separate_cells: false,
+            only_cell: Some(cell),
+            train_frames: s.finish_train_frames,
+            epochs: total,
+            decay_after: (s.epochs as f64 + s.decay_after * s.finish_epochs as f64) / total.max(1) as f64,
+            reversal_from: 0.0,
+            ..s.clone()
+        };
+        let only: Vec<f32> = weights.iter().enumerate().map(|(c, &w)| if c == cell { w } else { 0.0 }).collect();
+        let rng = std::mem::replace(&mut run.rng, ChaCha8Rng::seed_from_u64(0));
+        let mut finish = Run::resume(&f, part, rng, s.seed)?;
+        for epoch in s.epochs..total {
+            let losses = finish.epoch(&f, &teacher, epoch, &only)?;
+            run.student.put_cell(cell, &finish.student);
+            run.sync()?;
+            heldout_correlation = report(&run, None, epoch, losses)?;
+        }
+    }
     Ok((
         run.student.proto(),
         FitReport {
@@ -841,6 +998,11 @@ mod tests {
         assert_eq!(choose(&r, true, None), vec![0, 1, 1]);
         let e = fit(&FitSettings { only_cell: Some(3), ..Default::default() }, &|_| {}).err().unwrap().to_string();
         assert!(e.contains("--cell 3 names no cell") && e.contains("cells 0 to 2"), "{e}");
+        let e = fit(&FitSettings { finish_cell: Some(1), ..Default::default() }, &|_| {}).err().unwrap().to_string();
+        assert!(e.contains("--finish-cell") && e.contains("needs --separate-cells"), "{e}");
+        let s = FitSettings { finish_cell: Some(5), separate_cells: true, channels: (6, 3), ..Default::default() };
+        let e = fit(&s, &|_| {}).err().unwrap().to_string();
+        assert!(e.contains("--finish-cell 5 names no cell"), "{e}");
     }
 
     #[test]
@@ -922,7 +1084,7 @@ mod tests {
 
     #[test]
     fn clipping_bounds_a_burst_and_leaves_usual_gradients_alone() {
-        let mut clip = Clip::new(1);
+        let mut clip = Clip::new(1, 3.0);
         let g = |v: f32| vec![Tensor::from_elem(IxDyn(&[4]), v)];
         for _ in 0..20 {
             let mut usual = g(1.0);
@@ -933,12 +1095,20 @@ mod tests {
         clip.apply(&mut burst, &|_, _| 0);
         let norm = (4.0 * burst[0][[0]].powi(2)).sqrt();
         assert!((norm - 3.0 * 2.0).abs() < 1e-3, "clipped norm {norm}");
+        // Factor 0: no clipping.
+        let mut off = Clip::new(1, 0.0);
+        for _ in 0..20 {
+            off.apply(&mut g(1.0), &|_, _| 0);
+        }
+        let mut burst = g(100.0);
+        off.apply(&mut burst, &|_, _| 0);
+        assert_eq!(burst[0][[0]], 100.0);
     }
 
     #[test]
     fn clipping_in_groups_bounds_only_the_group_that_bursts() {
         // Entries 0-1 are group 0, entries 2-3 group 1.
-        let mut clip = Clip::new(2);
+        let mut clip = Clip::new(2, 3.0);
         let group = |_: usize, i: usize| i / 2;
         for _ in 0..20 {
             clip.apply(&mut [Tensor::from_elem(IxDyn(&[4]), 1.0)], &group);
@@ -1005,6 +1175,72 @@ mod tests {
             assert!((rm[[t, 1]] - rb[[t, 1]]).abs() < 1e-6);
         }
         assert!((LAGS - 1..movie.shape()[0]).any(|t| ra[[t, 1]] != rb[[t, 1]]), "the two students differ");
+    }
+
+    #[test]
+    fn movies_are_drawn_anew_every_so_many_epochs() {
+        // Every epoch: the seeds earlier fits used (seed * 1000 + 10 + 3 * epoch).
+        assert_eq!((0..4).map(|e| movie_seed(2, e, 1)).collect::<Vec<_>>(), [2010, 2013, 2016, 2019]);
+        assert_eq!((0..7).map(|e| movie_seed(2, e, 3)).collect::<Vec<_>>(), [2010, 2010, 2010, 2013, 2013, 2013, 2016]);
+        assert_eq!(movie_seed(2, 5, 0), movie_seed(2, 5, 1));
+    }
+
+    #[test]
+    fn stratified_batches_share_the_strongest_responses_and_keep_every_window() {
+        // 64 windows of one movie; cell 1 (weight 1) bursts on 8 of them, cell 0 has weight 0
+        // and is ignored even where it is larger.
+        let mut rates = Array2::from_elem((64, CELLS), 0.1f32);
+        for t in 0..8 {
+            rates[[8 * t, 1]] = 20.0;
+        }
+        rates[[5, 0]] = 100.0;
+        let data = vec![(Array3::zeros((64, 1, 1)), rates)];
+        let windows: Vec<(usize, usize)> = (0..64).map(|t| (0, t)).collect();
+        let mut rng = ChaCha8Rng::seed_from_u64(1);
+        let out = stratified(&windows, &data, &[0.0, 1.0, 1.0], 8, &mut rng);
+        let mut sorted = out.concat();
+        sorted.sort();
+        assert_eq!(sorted, windows);
+        assert_eq!(out.len(), 8);
+        for b in &out {
+            assert_eq!(b.iter().filter(|&&(_, t)| t % 8 == 0).count(), 1, "{b:?}");
+        }
+    }
+
+    #[test]
+    fn one_cells_part_predicts_that_cell_as_the_whole_does_and_goes_back_in_place() {
+        let s = FitSettings { channels: (6, 3), separate_cells: true, ..Default::default() };
+        let whole = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(1));
+        let other = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(2));
+        let movie = naturalistic(LAGS + 4, SIZE, SIZE, 9);
+        let rates_of = |st: &Student| {
+            let m = Model::from_proto(st.proto(), Path::new("s.onnx"), &LoadOptions::default()).unwrap();
+            rates(&m, &movie, &|_| {}).unwrap()
+        };
+        let part = other.cell_part(1).unwrap();
+        assert_eq!((part.factors[1].shape()[0], part.factors[3].shape()[..2].to_vec()), (2, vec![1, 2]));
+        let (rw, ro, rp) = (rates_of(&whole), rates_of(&other), rates_of(&part));
+        for t in LAGS - 1..movie.shape()[0] {
+            assert!((rp[[t, 1]] - ro[[t, 1]]).abs() < 1e-5, "frame {t}: {} vs {}", rp[[t, 1]], ro[[t, 1]]);
+        }
+        // Put into another student: that cell's rates move to the part's, the others stay.
+        let mut mixed = whole.clone();
+        mixed.put_cell(1, &part);
+        let rm = rates_of(&mixed);
+        for t in LAGS - 1..movie.shape()[0] {
+            assert_eq!((rm[[t, 0]], rm[[t, 2]]), (rw[[t, 0]], rw[[t, 2]]));
+            assert!((rm[[t, 1]] - ro[[t, 1]]).abs() < 1e-5);
+        }
+        // Taken and put back unchanged: the same student.
+        let mut same = whole.clone();
+        same.put_cell(2, &whole.cell_part(2).unwrap());
+        assert!(same.factors == whole.factors);
+        let shared = Student::init(
+            &FitSettings { channels: (6, 3), ..Default::default() },
+            &[1.0; 3],
+            &mut ChaCha8Rng::seed_from_u64(1),
+        );
+        assert!(shared.cell_part(0).is_err());
     }
 
     #[test]

@@ -193,6 +193,19 @@ pub fn reversing_bars(frames: usize, height: usize, width: usize, seed: u64) -> 
     moving_view(&image, frames, (height, width), &across, &mut rng)
 }
 
+/// A binary checkerboard texture (2-pixel checkers, 100 um, each bright or dark at full
+/// contrast, as [`binary_noise`]'s frames) in the steady, now and then reversing motion of
+/// [`reversing_texture`]: edges of every orientation and fine detail at every position, where
+/// a pink texture's power sits at coarse scales.
+pub fn reversing_checkers(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let size = 4 * height.max(width).next_power_of_two();
+    let (cells, checker) = (size / 2, 2);
+    let signs: Vec<f32> = (0..cells * cells).map(|_| random_sign(&mut rng) as f32).collect();
+    let image = Array2::from_shape_fn((size, size), |(y, x)| signs[(y / checker) * cells + x / checker]);
+    reversing_view(&image, frames, height, width, &mut rng)
+}
+
 /// -1 or +1 with equal probability.
 fn random_sign(rng: &mut ChaCha8Rng) -> f64 {
     if rng.random_range(0..2) == 0 {
@@ -496,14 +509,31 @@ mod tests {
     fn reversing_texture_retraces_its_path_after_a_reversal() {
         // At a reversal the view runs back over the frames it just showed: frame t + k equals
         // frame t - k. Find such a t, and check the texture does move.
-        let m = reversing_texture(400, 12, 12, 5);
+        assert_moves_and_reverses(&reversing_texture(400, 12, 12, 5), 0.05);
+    }
+
+    /// The 400-frame movie `m` moves (frames 0 and 10 differ by more than `moved` somewhere)
+    /// and reverses at least twice: at a reversal the view runs back over the frames it just
+    /// showed, frame t + k equal to frame t - k.
+    fn assert_moves_and_reverses(m: &Array3<f32>, moved: f32) {
         let diff = |a: usize, b: usize| {
             (&m.index_axis(ndarray::Axis(0), a) - &m.index_axis(ndarray::Axis(0), b))
                 .mapv(f32::abs)
                 .fold(0.0f32, |x, &y| x.max(y))
         };
-        assert!(diff(0, 10) > 0.05, "the texture does not move");
+        assert!(diff(0, 10) > moved, "the view does not move");
         let reversals = (12..388).filter(|&t| (1..=10).all(|k| diff(t + k, t - k) < 1e-3)).count();
         assert!(reversals >= 2, "{reversals} reversals in 400 frames");
+    }
+
+    #[test]
+    fn reversing_checkers_are_a_full_contrast_binary_texture_that_moves_and_reverses() {
+        let m = reversing_checkers(400, 12, 12, 5);
+        assert!(m.iter().all(|v| v.abs() <= 1.0 + 1e-6), "values beyond full contrast");
+        let n = m.len() as f32;
+        let (mean, magnitude) = (m.sum() / n, m.mapv(f32::abs).sum() / n);
+        // Bilinear sampling blends neighbouring checkers only near their borders.
+        assert!(mean.abs() < 0.1 && magnitude > 0.6, "mean {mean}, mean magnitude {magnitude}");
+        assert_moves_and_reverses(&m, 0.5);
     }
 }
