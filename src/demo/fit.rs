@@ -466,6 +466,10 @@ fn planted() -> Result<Model> {
     Model::from_proto(synthetic_sensor(), Path::new("synthetic-sensor-planted.onnx"), &LoadOptions::default())
 }
 
+/// Movies of the held-out set that are one kind each: noise, flicker, scenes and the scene with
+/// object (the held-out set always has object frames); the reversing movies follow.
+const HELDOUT_SINGLE_KINDS: usize = 4;
+
 /// Frames of each reversing movie in [`dataset`].
 const REVERSAL_CHUNK: usize = 250;
 
@@ -905,8 +909,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     }
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
     let mut report = |run: &Run, restart: Option<usize>, epoch: usize, (loss, cells): (f64, Vec<f64>)| {
-        // The held-out set always holds noise, flicker, scenes and the scene with object.
-        let (pooled, by_kind) = correlations(&run.model, &heldout, 4)?;
+        let (pooled, by_kind) = correlations(&run.model, &heldout, HELDOUT_SINGLE_KINDS)?;
         progress(&Epoch {
             number: epoch + 1,
             restart,
