@@ -251,13 +251,7 @@ impl Student {
     /// Which cell owns row `row` (the first axis) of factor `factor`, when cells have their own
     /// channels; `None` when they share them.
     fn owner(&self, factor: usize, row: usize) -> Option<usize> {
-        let (g1, g2) = self.per_cell?;
-        Some(match factor {
-            0 => row / RANK / g1,
-            1 | 2 => row / g1,
-            3 | 4 => row / g2,
-            _ => row,
-        })
+        Some(row / rows_per_cell(factor, self.per_cell?))
     }
 
     /// Zero the entries of `tensors` (factors or their gradients) that join one cell's channels
@@ -294,45 +288,36 @@ impl Student {
     /// each layer; every cell's readout row, those of the other cells without features): train
     /// it with the other cells' loss weights at zero, then [`Student::put_cell`] it back.
     fn cell_part(&self, cell: usize) -> Result<Student> {
-        let (g1, g2) =
+        let groups =
             self.per_cell.ok_or_else(|| crate::Error::Usage("fit: --finish-cell needs --separate-cells".into()))?;
         let f = &self.factors;
-        let rows = |t: &Tensor, n: usize| t.slice_axis(Axis(0), Slice::from(cell * n..(cell + 1) * n)).to_owned();
-        let conv2 = rows(&f[3], g2).slice_axis(Axis(1), Slice::from(cell * g1..(cell + 1) * g1)).to_owned();
-        let mut features = Tensor::zeros(IxDyn(&[CELLS, g2]));
+        let own = |k: usize| f[k].slice_axis(Axis(0), cell_rows(k, groups, cell)).to_owned();
+        let conv2 = own(3).slice_axis(Axis(1), cell_rows(1, groups, cell)).to_owned();
+        let mut features = Tensor::zeros(IxDyn(&[CELLS, groups.1]));
         features
             .index_axis_mut(Axis(0), cell)
-            .assign(&f[6].index_axis(Axis(0), cell).slice_axis(Axis(0), Slice::from(cell * g2..(cell + 1) * g2)));
-        let factors = vec![
-            rows(&f[0], g1 * RANK),
-            rows(&f[1], g1),
-            rows(&f[2], g1),
-            conv2,
-            rows(&f[4], g2),
-            f[5].clone(),
-            features,
-            f[7].clone(),
-        ];
+            .assign(&f[6].index_axis(Axis(0), cell).slice_axis(Axis(0), cell_rows(4, groups, cell)));
+        let factors = vec![own(0), own(1), own(2), conv2, own(4), f[5].clone(), features, f[7].clone()];
         Ok(Student { factors, side: self.side, per_cell: None, hidden: self.hidden })
     }
 
     /// Put back cell `cell`'s channels and readout row from `part` (see [`Student::cell_part`]).
     fn put_cell(&mut self, cell: usize, part: &Student) {
-        let Some((g1, g2)) = self.per_cell else { return };
+        let Some(groups) = self.per_cell else { return };
         let p = &part.factors;
-        for (f, n) in [(0, g1 * RANK), (1, g1), (2, g1), (4, g2)] {
-            self.factors[f].slice_axis_mut(Axis(0), Slice::from(cell * n..(cell + 1) * n)).assign(&p[f]);
+        for k in [0, 1, 2, 4] {
+            self.factors[k].slice_axis_mut(Axis(0), cell_rows(k, groups, cell)).assign(&p[k]);
         }
         self.factors[3]
-            .slice_axis_mut(Axis(0), Slice::from(cell * g2..(cell + 1) * g2))
-            .slice_axis_mut(Axis(1), Slice::from(cell * g1..(cell + 1) * g1))
+            .slice_axis_mut(Axis(0), cell_rows(3, groups, cell))
+            .slice_axis_mut(Axis(1), cell_rows(1, groups, cell))
             .assign(&p[3]);
-        for f in [5, 7] {
-            self.factors[f].index_axis_mut(Axis(0), cell).assign(&p[f].index_axis(Axis(0), cell));
+        for k in [5, 7] {
+            self.factors[k].index_axis_mut(Axis(0), cell).assign(&p[k].index_axis(Axis(0), cell));
         }
         self.factors[6]
             .index_axis_mut(Axis(0), cell)
-            .slice_axis_mut(Axis(0), Slice::from(cell * g2..(cell + 1) * g2))
+            .slice_axis_mut(Axis(0), cell_rows(4, groups, cell))
             .assign(&p[6].index_axis(Axis(0), cell));
     }
 
@@ -448,6 +433,26 @@ impl Student {
 
 /// Cells of the synthetic sensor.
 const CELLS: usize = 3;
+
+/// Rows (first axis) of factor `factor` that each cell owns when cells have their own channels,
+/// `groups` = (first-layer, second-layer) channels per cell: a first-layer channel has [`RANK`]
+/// temporal rows; the readout factors have one row per cell.
+fn rows_per_cell(factor: usize, (g1, g2): (usize, usize)) -> usize {
+    match factor {
+        0 => RANK * g1,
+        1 | 2 => g1,
+        3 | 4 => g2,
+        _ => 1,
+    }
+}
+
+/// The rows of factor `factor` that cell `cell` owns (see [`rows_per_cell`]); with factor 1,
+/// also its first-layer channels, and with factor 4 its second-layer channels, wherever those
+/// index an axis (conv2's inputs, the readout's features).
+fn cell_rows(factor: usize, groups: (usize, usize), cell: usize) -> Slice {
+    let n = rows_per_cell(factor, groups);
+    Slice::from(cell * n..(cell + 1) * n)
+}
 
 /// Spread (s.d.) of every hidden channel's pre-activation after [`Student::scale_to_data`]: wide
 /// enough that softplus rectifies (it is nearly linear within +-1).

@@ -200,9 +200,7 @@ pub fn reversing_bars(frames: usize, height: usize, width: usize, seed: u64) -> 
 pub fn reversing_checkers(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let size = 4 * height.max(width).next_power_of_two();
-    let (cells, checker) = (size / 2, 2);
-    let signs: Vec<f32> = (0..cells * cells).map(|_| random_sign(&mut rng) as f32).collect();
-    let image = Array2::from_shape_fn((size, size), |(y, x)| signs[(y / checker) * cells + x / checker]);
+    let image = checkerboard((size, size), 2, 1.0, &mut rng);
     reversing_view(&image, frames, height, width, &mut rng)
 }
 
@@ -327,17 +325,19 @@ pub fn binary_noise(
     seed: u64,
 ) -> Array3<f32> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
-    let (gh, gw) = (height.div_ceil(checker), width.div_ceil(checker));
     let mut movie = Array3::zeros((frames, height, width));
-    for t in 0..frames {
-        let grid: Vec<f32> = (0..gh * gw).map(|_| contrast * random_sign(&mut rng) as f32).collect();
-        for r in 0..height {
-            for c in 0..width {
-                movie[[t, r, c]] = grid[(r / checker) * gw + c / checker];
-            }
-        }
+    for mut frame in movie.outer_iter_mut() {
+        frame.assign(&checkerboard((height, width), checker, contrast, &mut rng));
     }
     movie
+}
+
+/// A `height x width` image of square checkers `checker` pixels wide, each +-`contrast` at
+/// random (drawn row by row over the checker grid; the last row and column may be cut).
+fn checkerboard((height, width): (usize, usize), checker: usize, contrast: f32, rng: &mut ChaCha8Rng) -> Array2<f32> {
+    let gw = width.div_ceil(checker);
+    let grid: Vec<f32> = (0..height.div_ceil(checker) * gw).map(|_| contrast * random_sign(rng) as f32).collect();
+    Array2::from_shape_fn((height, width), |(r, c)| grid[(r / checker) * gw + c / checker])
 }
 
 /// Spatially uniform (full-field) flicker `[frames, height, width]`: Gaussian intensities of s.d.
