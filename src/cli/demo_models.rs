@@ -79,6 +79,9 @@ pub struct DemoModelsArgs {
     /// Frames of each of binary noise, flicker and naturalistic movie per --finish-cell epoch.
     #[arg(long, default_value_t = FitSettings::default().finish_train_frames)]
     pub finish_train_frames: usize,
+    /// Adam step size of the --finish-cell phase (default: --lr).
+    #[arg(long)]
+    pub finish_lr: Option<f32>,
     /// Clip each batch's gradient at this many running means of recent gradient norms (0: no
     /// clipping).
     #[arg(long, default_value_t = FitSettings::default().clip)]
@@ -89,6 +92,13 @@ pub struct DemoModelsArgs {
     /// Give every batch an equal share of the strongest responses (stratified batches).
     #[arg(long)]
     pub stratify: bool,
+    /// Keep the readout's weights non-negative, so every sign sits in the convolutions.
+    #[arg(long)]
+    pub positive_readout: bool,
+    /// After each epoch, give dead hidden channels fresh incoming weights (and no outgoing
+    /// weight) so they can learn again.
+    #[arg(long)]
+    pub revive: bool,
 }
 
 /// Parse `C1,C2`.
@@ -132,19 +142,23 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             finish_cell: a.finish_cell,
             finish_epochs: a.finish_epochs,
             finish_train_frames: a.finish_train_frames,
+            finish_lr: a.finish_lr,
             clip: a.clip,
             movies_every: a.movies_every.max(1),
             stratify: a.stratify,
+            positive_readout: a.positive_readout,
+            revive: a.revive,
             ..Default::default()
         };
         let out = OutputDir::create(&a.out)?;
         let started = std::time::Instant::now();
         let (model, report) = fit(&settings, &|e| {
             eprintln!(
-                "{}epoch {} ({:.0} s): training loss {:.4}, per cell {:.3?}, held-out r {:.3?} (noise, flicker, scenes, object, reversing: {:.2?})",
+                "{}epoch {} ({:.0} s): training loss {:.4}, per cell {:.3?}, held-out r {:.3?} (noise, flicker, scenes, object, reversing: {:.2?}){}",
                 e.restart.map_or(String::new(), |k| format!("restart {k}, ")),
                 e.number,
-                started.elapsed().as_secs_f64(), e.loss, e.cell_loss, e.heldout_correlation, e.heldout_by_kind
+                started.elapsed().as_secs_f64(), e.loss, e.cell_loss, e.heldout_correlation, e.heldout_by_kind,
+                match e.revived { (0, 0) => String::new(), (a, b) => format!("; revived {a} + {b} dead channels") }
             );
             // The latest epoch's model, so a fit stopped early leaves one to examine.
             if let Err(err) = out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&e.model)) {

@@ -84,6 +84,9 @@ pub struct FitSettings {
     /// Frames of each of binary noise, flicker and naturalistic movie per finishing epoch (the
     /// object and reversing movies keep their counts).
     pub finish_train_frames: usize,
+    /// Adam step size of the finishing phase (`None`: `lr`): a sparse cell learnt alone fares
+    /// better with smaller steps (docs/performance.md, session 10, run E2).
+    pub finish_lr: Option<f32>,
     /// Gradient clipping bound, in running means of recent gradient norms (see [`Clip`]); 0
     /// turns clipping off.
     pub clip: f64,
@@ -96,6 +99,20 @@ pub struct FitSettings {
     /// sparse cell's bursts then reach every step in equal measure instead of a few steps in
     /// large blows, which Adam turns into large, erratic steps.
     pub stratify: bool,
+    /// Keep the readout's spatial mask and feature weights positive (projected after every
+    /// step onto a small floor, [`READOUT_FLOOR`]): each cell then sums its second-layer units with positive weights, its floor is
+    /// its readout bias, and every sign of the circuit sits in the convolutions, where reduction
+    /// reads it. A fit free to read a unit negatively learnt a tonically active unit whose dips
+    /// raise the rate (run Y1's reversal cell: a leak during smooth motion); the planted
+    /// readouts are all positive.
+    pub positive_readout: bool,
+    /// After every epoch, give each dead hidden channel (never above zero on a sample of the
+    /// epoch's windows, at any position) fresh incoming weights scaled to the data and no
+    /// outgoing weight, so it can learn again without changing the student's output (dormant
+    /// unit recycling after Sokar, Agarwal, Castro & Evci, ICML 2023). A rectified unit that
+    /// falls silent gets no gradient and stays silent: run Y1's reversal cell lost one of its
+    /// three second-layer units so.
+    pub revive: bool,
 }
 
 impl Default for FitSettings {
@@ -123,9 +140,12 @@ impl Default for FitSettings {
             finish_cell: None,
             finish_epochs: 0,
             finish_train_frames: 500,
+            finish_lr: None,
             clip: 3.0,
             movies_every: 1,
             stratify: false,
+            positive_readout: false,
+            revive: false,
         }
     }
 }
@@ -217,6 +237,8 @@ struct Student {
     per_cell: Option<(usize, usize)>,
     /// The hidden layers' nonlinearity.
     hidden: Hidden,
+    /// Whether the readout factors are kept positive (see [`FitSettings::positive_readout`]).
+    positive_readout: bool,
 }
 
 impl Student {
@@ -243,9 +265,16 @@ impl Student {
             Tensor::from_shape_fn(IxDyn(&[CELLS]), |i| inverse_softplus(mean_rates[i[0]])),
         ];
         let per_cell = s.separate_cells.then_some((c1 / CELLS, c2 / CELLS));
-        let student = Student { factors: Vec::new(), side, per_cell, hidden: s.hidden };
+        let student =
+            Student { factors: Vec::new(), side, per_cell, hidden: s.hidden, positive_readout: s.positive_readout };
         student.mask(&mut factors);
-        Student { factors, ..student }
+        let mut student = Student { factors, ..student };
+        if student.positive_readout {
+            student.factors[5].mapv_inplace(f32::abs);
+            student.factors[6].mapv_inplace(f32::abs);
+            student.project();
+        }
+        student
     }
 
     /// Which cell owns row `row` (the first axis) of factor `factor`, when cells have their own
@@ -298,7 +327,13 @@ impl Student {
             .index_axis_mut(Axis(0), cell)
             .assign(&f[6].index_axis(Axis(0), cell).slice_axis(Axis(0), cell_rows(4, groups, cell)));
         let factors = vec![own(0), own(1), own(2), conv2, own(4), f[5].clone(), features, f[7].clone()];
-        Ok(Student { factors, side: self.side, per_cell: None, hidden: self.hidden })
+        Ok(Student {
+            factors,
+            side: self.side,
+            per_cell: None,
+            hidden: self.hidden,
+            positive_readout: self.positive_readout,
+        })
     }
 
     /// Put back cell `cell`'s channels and readout row from `part` (see [`Student::cell_part`]).
@@ -379,26 +414,116 @@ impl Student {
     /// linear filter is close to zero (ON-OFF cells, cells built on cancellation): both planted
     /// cells 0 and 2 are such cells.
     fn scale_to_data(&mut self, x: &Tensor) -> Result<()> {
-        for (layer, factor) in [("conv1", 1), ("conv2", 3)] {
-            let model = Model::from_proto(self.training_proto(), Path::new("student.onnx"), &LoadOptions::default())?;
-            let id = model
-                .graph
-                .find(layer)
-                .ok_or_else(|| crate::Error::Usage(format!("fit: the student has no '{layer}'")))?;
-            let tape = model.graph.forward(x.clone(), &[])?;
-            let v = tape.value(id);
-            for c in 0..v.shape()[1] {
-                let (mean, var) = moments(v.index_axis(Axis(1), c).iter().copied());
-                let sd = var.sqrt();
-                if sd > 0.0 {
-                    let k = (INIT_SD / sd) as f32;
-                    self.factors[factor].index_axis_mut(Axis(0), c).mapv_inplace(|w| w * k);
-                    // Centre the channel so it starts where its nonlinearity bends.
-                    self.factors[factor + 1][[c]] -= (mean * INIT_SD / sd) as f32;
-                }
+        let (c1, c2) = (self.factors[1].shape()[0], self.factors[3].shape()[0]);
+        self.scale_channels(x, 1, &(0..c1).collect::<Vec<_>>())?;
+        self.scale_channels(x, 2, &(0..c2).collect::<Vec<_>>())?;
+        if self.positive_readout {
+            self.scale_readout(x)?;
+        }
+        Ok(())
+    }
+
+    /// Scale a positive readout so each cell's input to its output softplus has s.d.
+    /// [`READOUT_SD`] on the windows `x` and the mean the readout bias had (the cell's mean
+    /// rate): the same data-dependent start as the hidden layers'. A signed random readout sums
+    /// to about zero over the units' positions; a positive one at that scale sums to many times
+    /// the cells' rates, and the first steps then silence every unit to bring the rates down
+    /// (a first try lost 7 of 9 second-layer units in one epoch).
+    fn scale_readout(&mut self, x: &Tensor) -> Result<()> {
+        let v = self.value_of(x, "readout")?;
+        for c in 0..CELLS {
+            let (mean, var) = moments(v.index_axis(Axis(1), c).iter().copied());
+            let sd = var.sqrt();
+            if sd > 0.0 {
+                let k = READOUT_SD / sd;
+                self.factors[5].index_axis_mut(Axis(0), c).mapv_inplace(|w| w * k as f32);
+                let bias = self.factors[7][[c]] as f64;
+                self.factors[7][[c]] = (bias - (mean - bias) * k) as f32;
             }
         }
         Ok(())
+    }
+
+    /// Scale channels `channels` of hidden layer `layer` (1 or 2) so their pre-activations have
+    /// s.d. [`INIT_SD`] on the windows `x`, centred where the nonlinearity bends (see
+    /// [`Student::scale_to_data`]).
+    fn scale_channels(&mut self, x: &Tensor, layer: usize, channels: &[usize]) -> Result<()> {
+        if channels.is_empty() {
+            return Ok(());
+        }
+        let (name, factor) = if layer == 1 { ("conv1", 1) } else { ("conv2", 3) };
+        let v = self.value_of(x, name)?;
+        for &c in channels {
+            let (mean, var) = moments(v.index_axis(Axis(1), c).iter().copied());
+            let sd = var.sqrt();
+            if sd > 0.0 {
+                let k = (INIT_SD / sd) as f32;
+                self.factors[factor].index_axis_mut(Axis(0), c).mapv_inplace(|w| w * k);
+                // Centre the channel so it starts where its nonlinearity bends.
+                self.factors[factor + 1][[c]] -= (mean * INIT_SD / sd) as f32;
+            }
+        }
+        Ok(())
+    }
+
+    /// The value named `name` in the training graph run on the windows `x`.
+    fn value_of(&self, x: &Tensor, name: &str) -> Result<Tensor> {
+        let model = Model::from_proto(self.training_proto(), Path::new("student.onnx"), &LoadOptions::default())?;
+        let id =
+            model.graph.find(name).ok_or_else(|| crate::Error::Usage(format!("fit: the student has no '{name}'")))?;
+        Ok(model.graph.forward(x.clone(), &[])?.value(id).clone())
+    }
+
+    /// Keep the readout positive when it must be (see [`FitSettings::positive_readout`]): the
+    /// projection after each optimiser step, onto weights of at least [`READOUT_FLOOR`] (then
+    /// the cross-cell entries back to zero).
+    fn project(&mut self) {
+        if self.positive_readout {
+            self.factors[5].mapv_inplace(|v| v.max(READOUT_FLOOR));
+            self.factors[6].mapv_inplace(|v| v.max(READOUT_FLOOR));
+            let mut factors = std::mem::take(&mut self.factors);
+            self.mask(&mut factors);
+            self.factors = factors;
+        }
+    }
+
+    /// Revive the dead hidden channels on the windows `x` (see [`FitSettings::revive`]): fresh
+    /// random incoming weights, scaled to `x`, and zero outgoing weights, so the student's
+    /// output is unchanged. Returns how many channels were revived in layers 1 and 2.
+    fn revive(&mut self, x: &Tensor, rng: &mut ChaCha8Rng) -> Result<(usize, usize)> {
+        let (c1, k1) = (self.factors[1].shape()[0], self.factors[1].shape()[2]);
+        let k2 = self.factors[3].shape()[2];
+        let dead = |student: &Student, layer: &str| -> Result<Vec<usize>> {
+            let v = student.value_of(x, layer)?;
+            Ok((0..v.shape()[1]).filter(|&c| v.index_axis(Axis(1), c).iter().all(|&a| a <= DEAD)).collect())
+        };
+        let mut uniform = |t: &mut Tensor, rows: &[usize], fan_in: usize| {
+            let scale = (1.0 / fan_in as f32).sqrt();
+            for &r in rows {
+                t.index_axis_mut(Axis(0), r).mapv_inplace(|_| rng.random_range(-scale..scale));
+            }
+        };
+        let first = dead(self, "layer1")?;
+        let temporal: Vec<usize> = first.iter().flat_map(|&c| c * RANK..(c + 1) * RANK).collect();
+        uniform(&mut self.factors[0], &temporal, LAGS);
+        uniform(&mut self.factors[1], &first, RANK * k1 * k1);
+        for &c in &first {
+            self.factors[2][[c]] = 0.0;
+            self.factors[3].index_axis_mut(Axis(1), c).fill(0.0);
+        }
+        self.scale_channels(x, 1, &first)?;
+        let second = dead(self, "layer2")?;
+        uniform(&mut self.factors[3], &second, c1 * k2 * k2);
+        let mut factors = std::mem::take(&mut self.factors);
+        self.mask(&mut factors);
+        self.factors = factors;
+        for &c in &second {
+            self.factors[4][[c]] = 0.0;
+            self.factors[6].index_axis_mut(Axis(1), c).fill(0.0);
+        }
+        self.scale_channels(x, 2, &second)?;
+        self.project();
+        Ok((first.len(), second.len()))
     }
 
     /// The factorised graph the fit trains.
@@ -454,9 +579,23 @@ fn cell_rows(factor: usize, groups: (usize, usize), cell: usize) -> Slice {
     Slice::from(cell * n..(cell + 1) * n)
 }
 
+/// The least weight of a positive readout (see [`Student::project`]). Not zero: a unit read with
+/// zero weight gets no gradient, and a fit that drove a sparse cell's weights to zero in its
+/// first epochs left that cell constant for good; Adam's steps do not shrink with the gradient,
+/// so at this floor the unit still learns at full speed while adding next to nothing.
+const READOUT_FLOOR: f32 = 1e-3;
+
+/// Spread (s.d.) of each cell's input to its output softplus after [`Student::scale_readout`]:
+/// the rates start near each cell's mean rate, varying by tens of percent.
+const READOUT_SD: f64 = 0.5;
+
 /// Spread (s.d.) of every hidden channel's pre-activation after [`Student::scale_to_data`]: wide
 /// enough that softplus rectifies (it is nearly linear within +-1).
 const INIT_SD: f64 = 2.0;
+
+/// A hidden unit's output at or below this on every window and position counts as dead (see
+/// [`FitSettings::revive`]): exactly zero for ReLU; softplus would have to be below it.
+const DEAD: f32 = 1e-6;
 
 /// Contrast (s.d.) of the training flicker; see [`dataset`].
 pub const FLICKER_SD: f32 = 0.12;
@@ -716,6 +855,9 @@ pub struct Epoch {
     pub heldout_by_kind: Vec<Vec<f64>>,
     /// The model after this epoch (as shipped), so a fit stopped early leaves its latest model.
     pub model: tract_onnx::pb::ModelProto,
+    /// Dead channels revived after this epoch in hidden layers 1 and 2 (see
+    /// [`FitSettings::revive`]).
+    pub revived: (usize, usize),
 }
 
 /// Movies with the planted sensor's rates on them `[frames, cells]`.
@@ -733,6 +875,8 @@ struct Run {
     seed: u64,
     /// The latest draw of training movies and its key (seed, reversing frames).
     movies: Option<((u64, usize), Movies)>,
+    /// Hidden channels revived after the latest epoch, in layers 1 and 2.
+    revived: (usize, usize),
 }
 
 impl Run {
@@ -755,7 +899,7 @@ impl Run {
         let shapes: Vec<Vec<usize>> = student.factors.iter().map(|t| t.shape().to_vec()).collect();
         let adam = Adam::new(&shapes, s.lr);
         let clip = Clip::new(if s.separate_cells { CELLS } else { 1 }, s.clip);
-        Ok(Run { student, model, ids, adam, clip, rng, seed, movies: None })
+        Ok(Run { student, model, ids, adam, clip, rng, seed, movies: None, revived: (0, 0) })
     }
 
     /// Write the student's factors into the training graph's parameters.
@@ -802,16 +946,31 @@ impl Run {
                 let mut refs: Vec<&mut Tensor> = self.student.factors.iter_mut().collect();
                 self.adam.step(&mut refs, &grads);
             }
+            self.student.project();
             self.sync()?;
             total += loss;
             cells.iter_mut().zip(per_cell).for_each(|(a, v)| *a += v);
             steps += 1;
+        }
+        if s.revive {
+            // Its own draw, so reviving leaves the batch order of later epochs as it was.
+            let mut rng = ChaCha8Rng::seed_from_u64(key.0 ^ REVIVE_SEED ^ epoch as u64);
+            let x = sample_windows(&train, REVIVE_WINDOWS, &mut rng)?;
+            self.revived = self.student.revive(&x, &mut rng)?;
+            self.sync()?;
         }
         self.movies = Some((key, train));
         let n = steps.max(1) as f64;
         Ok((total / n, cells.iter().map(|c| c / n).collect()))
     }
 }
+
+/// Windows on which [`FitSettings::revive`] looks for dead channels: drawn from every movie of
+/// the epoch, they give a unit that answers a tenth of the frames many chances to show it.
+const REVIVE_WINDOWS: usize = 192;
+
+/// Mixed into the seed of the windows that [`FitSettings::revive`] looks at.
+const REVIVE_SEED: u64 = 0x7265_7669_7665;
 
 /// Seed of the training movies of epoch `epoch` (from 0) of a fit seeded `seed` that draws new
 /// movies every `every` epochs (with `every` = 1, the seeds of every earlier fit).
@@ -865,6 +1024,24 @@ fn choose(r: &[Vec<f64>], separate: bool, only: Option<usize>) -> Vec<usize> {
     match only {
         Some(k) => vec![best_candidates(r, true)[k]; CELLS],
         None => best_candidates(r, separate),
+    }
+}
+
+/// The settings of the finishing phase of `s` (see [`FitSettings::finish_cell`]) for cell
+/// `cell`, whose part of the student has `channels`: its epochs numbered after the main ones,
+/// its own training frames and step size, and the step decay within the phase.
+fn finishing(s: &FitSettings, cell: usize, channels: (usize, usize)) -> FitSettings {
+    let total = s.epochs + s.finish_epochs;
+    FitSettings {
+        channels,
+        separate_cells: false,
+        only_cell: Some(cell),
+        train_frames: s.finish_train_frames,
+        lr: s.finish_lr.unwrap_or(s.lr),
+        epochs: total,
+        decay_after: (s.epochs as f64 + s.decay_after * s.finish_epochs as f64) / total.max(1) as f64,
+        reversal_from: 0.0,
+        ..s.clone()
     }
 }
 
@@ -923,6 +1100,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
             heldout_correlation: pooled.clone(),
             heldout_by_kind: by_kind,
             model: run.student.proto(),
+            revived: run.revived,
         });
         if restart.is_none() {
             epoch_loss.push(loss);
@@ -962,16 +1140,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         // main epochs', with the same step decay within the phase.
         let part = run.student.cell_part(cell)?;
         let total = s.epochs + s.finish_epochs;
-        let f = FitSettings {
-            channels: (part.factors[1].shape()[0], part.factors[3].shape()[0]),
-            separate_cells: false,
-            only_cell: Some(cell),
-            train_frames: s.finish_train_frames,
-            epochs: total,
-            decay_after: (s.epochs as f64 + s.decay_after * s.finish_epochs as f64) / total.max(1) as f64,
-            reversal_from: 0.0,
-            ..s.clone()
-        };
+        let f = finishing(s, cell, (part.factors[1].shape()[0], part.factors[3].shape()[0]));
         let only: Vec<f32> = weights.iter().enumerate().map(|(c, &w)| if c == cell { w } else { 0.0 }).collect();
         let rng = std::mem::replace(&mut run.rng, ChaCha8Rng::seed_from_u64(0));
         let mut finish = Run::resume(&f, part, rng, s.seed)?;
@@ -1126,6 +1295,106 @@ mod tests {
         assert_eq!((g[0][[0]], g[0][[1]]), (1.0, 1.0));
         let norm = (2.0 * g[0][[2]].powi(2)).sqrt();
         assert!((norm - 3.0 * 2f32.sqrt()).abs() < 1e-3, "clipped norm {norm}");
+    }
+
+    #[test]
+    fn the_finishing_phase_has_its_own_frames_step_size_and_decay() {
+        let s = FitSettings {
+            epochs: 20,
+            finish_epochs: 10,
+            finish_train_frames: 300,
+            decay_after: 0.5,
+            separate_cells: true,
+            ..Default::default()
+        };
+        let f = finishing(&s, 1, (6, 3));
+        assert_eq!((f.channels, f.only_cell, f.separate_cells, f.train_frames), ((6, 3), Some(1), false, 300));
+        assert_eq!((f.epochs, f.lr), (30, s.lr));
+        // The step drops halfway through the phase: after epoch 25 of 30.
+        assert!((f.decay_after * 30.0 - 25.0).abs() < 1e-9);
+        assert_eq!(finishing(&FitSettings { finish_lr: Some(3e-4), ..s }, 1, (6, 3)).lr, 3e-4);
+    }
+
+    #[test]
+    fn a_positive_readout_starts_and_stays_non_negative() {
+        let s = FitSettings { channels: (3, 2), positive_readout: true, ..Default::default() };
+        let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(4));
+        assert!(student.factors[5].iter().all(|&v| v >= READOUT_FLOOR));
+        assert!(student.factors[6].iter().all(|&v| v >= READOUT_FLOOR));
+        // An optimiser step that pushes weights below the floor is projected back to it; other
+        // factors keep their signs.
+        let kept = student.factors[6][[0, 1]];
+        student.factors[5][[1, 3]] = -0.5;
+        student.factors[6][[2, 0]] = -0.2;
+        student.factors[3][[0, 0, 0, 0]] = -0.7;
+        student.project();
+        assert_eq!((student.factors[5][[1, 3]], student.factors[6][[2, 0]]), (READOUT_FLOOR, READOUT_FLOOR));
+        assert_eq!((student.factors[6][[0, 1]], student.factors[3][[0, 0, 0, 0]]), (kept, -0.7));
+        // Scaled to data, the readout's input to the output softplus has the set spread and
+        // starts at each cell's mean rate.
+        let movie = naturalistic(LAGS + 30, SIZE, SIZE, 2);
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let x = sample_windows(&[(movie, Array2::zeros((LAGS + 30, CELLS)))], 24, &mut rng).unwrap();
+        let mut scaled = Student::init(&s, &[0.5, 1.0, 2.0], &mut rng);
+        scaled.scale_to_data(&x).unwrap();
+        let v = scaled.value_of(&x, "readout").unwrap();
+        for (c, rate) in [0.5f32, 1.0, 2.0].into_iter().enumerate() {
+            let (mean, var) = moments(v.index_axis(Axis(1), c).iter().copied());
+            assert!((mean - inverse_softplus(rate) as f64).abs() < 1e-3, "cell {c}: mean {mean}");
+            assert!((var.sqrt() - READOUT_SD).abs() < 1e-3, "cell {c}: sd {}", var.sqrt());
+        }
+        assert!(scaled.factors[5].iter().chain(scaled.factors[6].iter()).all(|&v| v > 0.0));
+        // With separate cells the features joining a cell to another's units stay zero.
+        let separate = FitSettings { channels: (6, 3), separate_cells: true, ..s.clone() };
+        let mut own = Student::init(&separate, &[0.5, 1.0, 2.0], &mut rng);
+        own.factors[6].fill(-1.0);
+        own.project();
+        for (i, &w) in own.factors[6].indexed_iter() {
+            assert_eq!(w, if i[0] == i[1] { READOUT_FLOOR } else { 0.0 }, "cell {}, unit {}", i[0], i[1]);
+        }
+        // Without the option nothing is projected.
+        let free = Student::init(
+            &FitSettings { positive_readout: false, ..s },
+            &[0.5, 1.0, 2.0],
+            &mut ChaCha8Rng::seed_from_u64(4),
+        );
+        assert!(free.factors[5].iter().any(|&v| v < 0.0));
+    }
+
+    #[test]
+    fn reviving_dead_channels_leaves_the_output_alone_and_makes_them_answer() {
+        let s = FitSettings { channels: (6, 3), separate_cells: true, hidden: Hidden::Relu, ..Default::default() };
+        let mut rng = ChaCha8Rng::seed_from_u64(6);
+        let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut rng);
+        let movie = naturalistic(LAGS + 30, SIZE, SIZE, 2);
+        let data = vec![(movie.clone(), Array2::zeros((LAGS + 30, CELLS)))];
+        let x = sample_windows(&data, 24, &mut rng).unwrap();
+        student.scale_to_data(&x).unwrap();
+        // Kill first-layer channel 3 (cell 1's) and second-layer channel 2 (cell 2's).
+        student.factors[2][[3]] = -1e4;
+        student.factors[4][[2]] = -1e4;
+        let load = |st: &Student| Model::from_proto(st.proto(), Path::new("s.onnx"), &LoadOptions::default()).unwrap();
+        let before = rates(&load(&student), &movie, &|_| {}).unwrap();
+        let alive = student.clone();
+        assert_eq!(student.revive(&x, &mut rng).unwrap(), (1, 1));
+        let after = rates(&load(&student), &movie, &|_| {}).unwrap();
+        let moved = before.iter().zip(after.iter()).map(|(a, b)| (a - b).abs()).fold(0.0, f32::max);
+        assert!(moved < 1e-5, "reviving changed the rates by {moved}");
+        for (layer, c) in [("layer1", 3), ("layer2", 2)] {
+            let v = student.value_of(&x, layer).unwrap();
+            let on = v.index_axis(Axis(1), c).iter().filter(|&&a| a > DEAD).count();
+            assert!(on > v.index_axis(Axis(1), c).len() / 10, "{layer}:{c} answers {on} times");
+        }
+        // The live channels keep their incoming weights; the revived ones lose their outgoing
+        // weights and, across cells, stay disconnected.
+        assert_eq!(student.factors[1].index_axis(Axis(0), 2), alive.factors[1].index_axis(Axis(0), 2));
+        assert_eq!(student.factors[3].index_axis(Axis(0), 0), alive.factors[3].index_axis(Axis(0), 0));
+        assert!(student.factors[3].index_axis(Axis(1), 3).iter().all(|&w| w == 0.0));
+        assert!(student.factors[6].index_axis(Axis(1), 2).iter().all(|&w| w == 0.0));
+        assert!(student.factors[3].index_axis(Axis(0), 2).slice(ndarray::s![0..4, .., ..]).iter().all(|&w| w == 0.0));
+        assert!(student.factors[3].index_axis(Axis(0), 2).iter().any(|&w| w != 0.0));
+        // Nothing dead, nothing revived.
+        assert_eq!(student.clone().revive(&x, &mut rng).unwrap(), (0, 0));
     }
 
     #[test]
