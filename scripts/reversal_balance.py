@@ -7,7 +7,7 @@ readout; src/demo/planted.rs) is first checked against the shipped planted model
 left edge, 800 ms approach). It then scales the delayed copies' weight by gamma (a fitted model
 never matches it exactly) and prints the reversal / smooth ratio of the `reversing-bar` metric
 (mean rate in the 200 ms after the reversal over the mean rate 400-200 ms before it) for unit
-thresholds theta, and the correlation of the imbalanced cell with the balanced one on a
+thresholds theta (the units keep their ceiling of 1), and the correlation of the imbalanced cell with the balanced one on a
 naturalistic movie (what a fit's loss sees). Last, how much of the cell's response to drifting
 scenes (smooth and sharp-edged) survives blurring the movie: if nearly all of it, scenes cannot
 teach a fit how the cell answers a thin bar.
@@ -22,7 +22,7 @@ from planted_response_statistics import pink_image, rates, view
 
 LAGS, SIZE, K1, FRAME_MS = 40, 50, 15, 10.0
 DS_SPEED, DS_PEAK_MS, DS_WIDTH_MS, DS_DELAY_MS, DS_THRESHOLD = 0.2, 100.0, 40.0, 80.0, 4.0
-PLANTED_THETA = 0.75
+PLANTED_THETA, PLANTED_CEILING = 0.5, 1.0
 
 
 def kernel(sign, peak):
@@ -52,16 +52,16 @@ def pathways(movie):
     return np.maximum(drive.transpose(0, 3, 1, 2) - DS_THRESHOLD, 0)
 
 
-def cell(active, theta, gamma):
+def cell(active, theta, gamma, ceiling=PLANTED_CEILING):
     """Cell 1's rate: at each of the 4 readout positions, each direction's 13 x 13 pool (weight
-    8) minus gamma times its delayed copy's, less theta, rectified; summed with weight 2,
-    bias -1, softplus."""
+    8) minus gamma times its delayed copy's, less theta, rectified and capped at `ceiling`;
+    summed with weight 2, bias -1, softplus."""
     total = 0
     for qy in (0, 1):
         for qx in (0, 1):
             pool = active[:, :, qy + 1 : qy + 14, qx + 1 : qx + 14].sum(axis=(2, 3)) / 169
             for direct, delayed in [(0, 1), (2, 3)]:
-                total = total + np.maximum(8 * (pool[:, direct] - gamma * pool[:, delayed]) - theta, 0)
+                total = total + np.clip(8 * (pool[:, direct] - gamma * pool[:, delayed]) - theta, 0, ceiling)
     return np.log1p(np.exp(2 * total - 1))
 
 

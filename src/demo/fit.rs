@@ -103,8 +103,9 @@ pub struct FitSettings {
     /// step onto a small floor, [`READOUT_FLOOR`]): each cell then sums its second-layer units with positive weights, its floor is
     /// its readout bias, and every sign of the circuit sits in the convolutions, where reduction
     /// reads it. A fit free to read a unit negatively learnt a tonically active unit whose dips
-    /// raise the rate (run Y1's reversal cell: a leak during smooth motion); the planted
-    /// readouts are all positive.
+    /// raise the rate (run Y1's reversal cell: a leak during smooth motion). The planted
+    /// reversal cell's caps are read negatively (docs/models.md), so a fit of the present
+    /// sensor needs the signed readout.
     pub positive_readout: bool,
     /// After every epoch, give each dead hidden channel (never above zero on a sample of the
     /// epoch's windows, at any position) fresh incoming weights scaled to the data and no

@@ -9,9 +9,9 @@
 //!   after the omitted flash.
 //! - cell 1, "reversal": two direction-selective pathways (space-time oriented filters, one per
 //!   direction), each pooled over a square and inhibited by an 80 ms delayed copy of itself, with a
-//!   threshold. Under steady motion each direction's pool and its delayed copy match and cancel;
-//!   when the bar reverses, the newly driven direction fires until its delayed copy catches up: a
-//!   burst at the reversal.
+//!   threshold and a ceiling. Under steady motion each direction's pool and its delayed copy match
+//!   and cancel; when the bar reverses, the newly driven direction fires until its delayed copy
+//!   catches up: a burst at the reversal.
 //! - cell 2, "object motion": the same subunit types, centre pool minus a surround pool (both
 //!   rectified, the difference rectified), after Olveczky, Baccus & Meister (Nature 2003):
 //!   global jitter drives centre and surround together and they cancel; differential motion
@@ -68,7 +68,21 @@ const DS_DELAY_MS: f64 = 80.0;
 /// 25 % weaker or stronger than its pathway still leaves the unit silent, so the reversal
 /// response does not hinge on an exact cancellation (with no threshold a 10 % imbalance cuts
 /// the reversal / smooth ratio from 15 to 5.5: scripts/reversal_balance.py).
-const REVERSAL_THRESHOLD: f32 = 0.75;
+const REVERSAL_THRESHOLD: f32 = 0.5;
+
+/// Ceiling of the reversal units: each is `min(relu(drive - threshold), ceiling)`, written as
+/// two ReLU units read with opposite signs (`relu(d - t) - relu(d - t - ceiling)`), so the
+/// circuit stays inside the ReLU-network class a fitted CNN has. Without it a drifting texture
+/// that happens to move at the preferred speed drives the whole pool at once and the cell's
+/// rate reaches 76 where the reversal gives 3.3: two frames in a hundred then hold 94 % of its
+/// variance and a fit learns the cell from a handful of events. With the ceiling the largest
+/// burst is 15 and the reversal / smooth ratio stays 10 (docs/performance.md, session 11).
+const REVERSAL_CEILING: f32 = 1.0;
+
+/// Second-layer units: 0 resonant, 1 and 2 the reversal units (rightward, leftward), 3 object
+/// motion, 4 and 5 the reversal units' ceilings (copies of 1 and 2 with a threshold higher by
+/// [`REVERSAL_CEILING`], read negatively).
+pub const UNITS: usize = 6;
 
 /// Names of the cells, by output index.
 pub const CELLS: [&str; 3] = ["resonant", "reversal", "object-motion"];
@@ -176,7 +190,7 @@ pub fn synthetic_sensor() -> ModelProto {
     for ds in 4..8 {
         b1[[ds]] = -DS_THRESHOLD;
     }
-    let mut w2 = Tensor::zeros(IxDyn(&[4, n1, K2, K2]));
+    let mut w2 = Tensor::zeros(IxDyn(&[UNITS, n1, K2, K2]));
     let c = K2 / 2;
     // Unit 0: resonant excitation minus flash-driven inhibition at the centre.
     w2[[0, 2, c, c]] = 1.0;
@@ -190,11 +204,12 @@ pub fn synthetic_sensor() -> ModelProto {
             (K2, K2),
             |(y, x)| if y.abs_diff(c) <= 6 && x.abs_diff(c) <= 6 { 1.0 / 169.0 } else { 0.0 },
         );
+    // Units 4 and 5: the same pools, for the ceilings.
     for ((y, x), &v) in pool.indexed_iter() {
-        w2[[1, 4, y, x]] = 8.0 * v;
-        w2[[1, 5, y, x]] = -8.0 * v;
-        w2[[2, 6, y, x]] = 8.0 * v;
-        w2[[2, 7, y, x]] = -8.0 * v;
+        for (unit, direct) in [(1, 4), (2, 6), (4, 4), (5, 6)] {
+            w2[[unit, direct, y, x]] = 8.0 * v;
+            w2[[unit, direct + 1, y, x]] = -8.0 * v;
+        }
     }
     for sub in 0..2 {
         for ((y, x), &v) in centre.indexed_iter() {
@@ -204,17 +219,21 @@ pub fn synthetic_sensor() -> ModelProto {
             w2[[3, sub, y, x]] -= 4.0 * v;
         }
     }
-    let mut b2 = Tensor::zeros(IxDyn(&[4]));
+    let mut b2 = Tensor::zeros(IxDyn(&[UNITS]));
     b2[[1]] = -REVERSAL_THRESHOLD;
     b2[[2]] = -REVERSAL_THRESHOLD;
-    // Readout: each cell reads its unit(s) at the four central positions of the 22 x 22 map.
+    b2[[4]] = -REVERSAL_THRESHOLD - REVERSAL_CEILING;
+    b2[[5]] = -REVERSAL_THRESHOLD - REVERSAL_CEILING;
+    // Readout: each cell reads its unit(s) at the four central positions of the 22 x 22 map
+    // (the ceilings with the opposite sign).
     let s2 = SIZE - K1 + 1 - K2 + 1;
     let per = s2 * s2;
-    let mut w3 = Tensor::zeros(IxDyn(&[3, 4 * per]));
-    for (cell, units) in [(0, vec![0]), (1, vec![1, 2]), (2, vec![3])] {
-        for u in units {
+    let mut w3 = Tensor::zeros(IxDyn(&[3, UNITS * per]));
+    for (cell, units) in [(0, vec![(0, 2.0)]), (1, vec![(1, 2.0), (2, 2.0), (4, -2.0), (5, -2.0)]), (2, vec![(3, 2.0)])]
+    {
+        for (u, w) in units {
             for (y, x) in [(s2 / 2 - 1, s2 / 2 - 1), (s2 / 2 - 1, s2 / 2), (s2 / 2, s2 / 2 - 1), (s2 / 2, s2 / 2)] {
-                w3[[cell, u * per + y * s2 + x]] = 2.0;
+                w3[[cell, u * per + y * s2 + x]] = w;
             }
         }
     }
