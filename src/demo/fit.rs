@@ -250,12 +250,9 @@ impl Student {
         let (c1, c2) = s.channels;
         let (k1, k2) = s.kernels;
         let side = SIZE - k1 + 1 - k2 + 1;
-        let mut t = |dims: &[usize], fan_in: usize| {
-            let scale = (1.0 / fan_in as f32).sqrt();
-            Tensor::from_shape_fn(IxDyn(dims), |_| rng.random_range(-scale..scale))
-        };
+        let mut t = |dims: &[usize], fan_in: usize| uniform(dims, fan_in, rng);
         // Products of the factors start at the usual 1 / sqrt(fan-in) scale.
-        let mut factors = vec![
+        let factors = vec![
             t(&[c1 * RANK, LAGS, 1, 1], LAGS),
             t(&[c1, RANK, k1, k1], RANK * k1 * k1),
             Tensor::zeros(IxDyn(&[c1])),
@@ -266,10 +263,8 @@ impl Student {
             Tensor::from_shape_fn(IxDyn(&[CELLS]), |i| inverse_softplus(mean_rates[i[0]])),
         ];
         let per_cell = s.separate_cells.then_some((c1 / CELLS, c2 / CELLS));
-        let student =
-            Student { factors: Vec::new(), side, per_cell, hidden: s.hidden, positive_readout: s.positive_readout };
-        student.mask(&mut factors);
-        let mut student = Student { factors, ..student };
+        let mut student = Student { factors, side, per_cell, hidden: s.hidden, positive_readout: s.positive_readout };
+        student.mask_factors();
         if student.positive_readout {
             student.factors[5].mapv_inplace(f32::abs);
             student.factors[6].mapv_inplace(f32::abs);
@@ -295,6 +290,13 @@ impl Student {
                 _ => {}
             }
         }
+    }
+
+    /// [`Student::mask`] applied to the student's own factors.
+    fn mask_factors(&mut self) {
+        let mut factors = std::mem::take(&mut self.factors);
+        self.mask(&mut factors);
+        self.factors = factors;
     }
 
     /// Copy cell `cell`'s channels (every row it owns, in every factor) from `other`, a student
@@ -482,9 +484,7 @@ impl Student {
         if self.positive_readout {
             self.factors[5].mapv_inplace(|v| v.max(READOUT_FLOOR));
             self.factors[6].mapv_inplace(|v| v.max(READOUT_FLOOR));
-            let mut factors = std::mem::take(&mut self.factors);
-            self.mask(&mut factors);
-            self.factors = factors;
+            self.mask_factors();
         }
     }
 
@@ -498,26 +498,24 @@ impl Student {
             let v = student.value_of(x, layer)?;
             Ok((0..v.shape()[1]).filter(|&c| v.index_axis(Axis(1), c).iter().all(|&a| a <= DEAD)).collect())
         };
-        let mut uniform = |t: &mut Tensor, rows: &[usize], fan_in: usize| {
-            let scale = (1.0 / fan_in as f32).sqrt();
+        let mut redraw = |t: &mut Tensor, rows: &[usize], fan_in: usize| {
             for &r in rows {
-                t.index_axis_mut(Axis(0), r).mapv_inplace(|_| rng.random_range(-scale..scale));
+                let fresh = uniform(&t.shape()[1..], fan_in, rng);
+                t.index_axis_mut(Axis(0), r).assign(&fresh);
             }
         };
         let first = dead(self, "layer1")?;
         let temporal: Vec<usize> = first.iter().flat_map(|&c| c * RANK..(c + 1) * RANK).collect();
-        uniform(&mut self.factors[0], &temporal, LAGS);
-        uniform(&mut self.factors[1], &first, RANK * k1 * k1);
+        redraw(&mut self.factors[0], &temporal, LAGS);
+        redraw(&mut self.factors[1], &first, RANK * k1 * k1);
         for &c in &first {
             self.factors[2][[c]] = 0.0;
             self.factors[3].index_axis_mut(Axis(1), c).fill(0.0);
         }
         self.scale_channels(x, 1, &first)?;
         let second = dead(self, "layer2")?;
-        uniform(&mut self.factors[3], &second, c1 * k2 * k2);
-        let mut factors = std::mem::take(&mut self.factors);
-        self.mask(&mut factors);
-        self.factors = factors;
+        redraw(&mut self.factors[3], &second, c1 * k2 * k2);
+        self.mask_factors();
         for &c in &second {
             self.factors[4][[c]] = 0.0;
             self.factors[6].index_axis_mut(Axis(1), c).fill(0.0);
@@ -559,6 +557,13 @@ impl Student {
 
 /// Cells of the synthetic sensor.
 const CELLS: usize = 3;
+
+/// Random weights of shape `dims`, uniform at the usual 1 / sqrt(`fan_in`) scale (common
+/// practice): the student's start, and a revived channel's fresh start.
+fn uniform(dims: &[usize], fan_in: usize, rng: &mut ChaCha8Rng) -> Tensor {
+    let scale = (1.0 / fan_in as f32).sqrt();
+    Tensor::from_shape_fn(IxDyn(dims), |_| rng.random_range(-scale..scale))
+}
 
 /// Rows (first axis) of factor `factor` that each cell owns when cells have their own channels,
 /// `groups` = (first-layer, second-layer) channels per cell: a first-layer channel has [`RANK`]
