@@ -32,7 +32,7 @@ pub struct DemoModelsArgs {
     /// movies.
     #[arg(long, value_parser = fraction, default_value_t = FitSettings::default().reversal_from)]
     pub reversal_from: f64,
-    /// What the reversing movie moves: a pink texture or thin lines.
+    /// What the reversing movie moves: a pink texture, thin lines, parallel bars, lone bars or a checkerboard.
     #[arg(long, value_enum, default_value_t = ReversalImage::Pink)]
     pub reversal_image: ReversalImage,
     /// Passes over the training windows.
@@ -99,6 +99,17 @@ pub struct DemoModelsArgs {
     /// weight) so they can learn again.
     #[arg(long)]
     pub revive: bool,
+    /// Ship the mean of the weights over the steps after the step size drops (--decay-after)
+    /// instead of the last step's.
+    #[arg(long)]
+    pub average: bool,
+    /// Fraction of the epochs (0 to 1) after which the step size drops to a fifth.
+    #[arg(long, value_parser = fraction, default_value_t = FitSettings::default().decay_after)]
+    pub decay_after: f64,
+    /// Start each hidden channel this many s.d. of its input below its threshold (0: at it),
+    /// so it starts active on fewer windows.
+    #[arg(long, default_value_t = FitSettings::default().sparse_start)]
+    pub sparse_start: f64,
 }
 
 /// Parse `C1,C2`.
@@ -148,6 +159,9 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             stratify: a.stratify,
             positive_readout: a.positive_readout,
             revive: a.revive,
+            average: a.average,
+            decay_after: a.decay_after,
+            sparse_start: a.sparse_start,
             ..Default::default()
         };
         let out = OutputDir::create(&a.out)?;

@@ -4,7 +4,7 @@
 
 use super::movies::{
     binary_noise, full_field_flicker, naturalistic, reversing_bars, reversing_checkers, reversing_lines,
-    reversing_texture, scene_with_object,
+    reversing_lone_bars, reversing_texture, scene_with_object,
 };
 use super::planted::{synthetic_sensor, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
@@ -114,6 +114,22 @@ pub struct FitSettings {
     /// falls silent gets no gradient and stays silent: run Y1's reversal cell lost one of its
     /// three second-layer units so.
     pub revive: bool,
+    /// Ship the mean of the weights over the steps of the low-step tail (the epochs after
+    /// `decay_after`; the last [`AVERAGE_STEPS`] steps weigh most) instead of the last step's
+    /// weights (iterate averaging: Polyak & Juditsky, SIAM J. Control Optim. 1992; stochastic
+    /// weight averaging: Izmailov et al., UAI 2018; the exponential forgetting is common
+    /// practice, so a long tail's mean does not lag behind weights that still learn). A
+    /// sparse cell's bursts move the weights from step to step, so the last step's model is one
+    /// draw from around the minimum: run N1's reversal / smooth ratio swung from 0.1 to 7 between
+    /// epochs (docs/performance.md, session 11).
+    pub average: bool,
+    /// Where each hidden channel starts, in s.d. of its pre-activation below the bend of its
+    /// nonlinearity (0: at the bend, half its windows active; 1: about a sixth of them). A
+    /// rectified unit centred at its bend stays nearly linear on most inputs; the planted
+    /// reversal cell's pathways and units are silent on most frames, and fits started at the
+    /// bend learnt tonic, weakly direction-selective channels instead (docs/performance.md,
+    /// session 12).
+    pub sparse_start: f64,
 }
 
 impl Default for FitSettings {
@@ -147,6 +163,8 @@ impl Default for FitSettings {
             stratify: false,
             positive_readout: false,
             revive: false,
+            average: false,
+            sparse_start: 0.0,
         }
     }
 }
@@ -182,6 +200,8 @@ pub enum ReversalImage {
     Lines,
     /// Parallel bars on gray ([`reversing_bars`]).
     Bars,
+    /// Bars far apart, mostly one in view ([`reversing_lone_bars`]).
+    LoneBars,
     /// A binary checkerboard ([`reversing_checkers`]).
     Checkers,
 }
@@ -240,6 +260,8 @@ struct Student {
     hidden: Hidden,
     /// Whether the readout factors are kept positive (see [`FitSettings::positive_readout`]).
     positive_readout: bool,
+    /// Where hidden channels start (see [`FitSettings::sparse_start`]).
+    sparse_start: f64,
 }
 
 impl Student {
@@ -263,7 +285,14 @@ impl Student {
             Tensor::from_shape_fn(IxDyn(&[CELLS]), |i| inverse_softplus(mean_rates[i[0]])),
         ];
         let per_cell = s.separate_cells.then_some((c1 / CELLS, c2 / CELLS));
-        let mut student = Student { factors, side, per_cell, hidden: s.hidden, positive_readout: s.positive_readout };
+        let mut student = Student {
+            factors,
+            side,
+            per_cell,
+            hidden: s.hidden,
+            positive_readout: s.positive_readout,
+            sparse_start: s.sparse_start,
+        };
         student.mask_factors();
         if student.positive_readout {
             student.factors[5].mapv_inplace(f32::abs);
@@ -336,6 +365,7 @@ impl Student {
             per_cell: None,
             hidden: self.hidden,
             positive_readout: self.positive_readout,
+            sparse_start: self.sparse_start,
         })
     }
 
@@ -448,8 +478,8 @@ impl Student {
     }
 
     /// Scale channels `channels` of hidden layer `layer` (1 or 2) so their pre-activations have
-    /// s.d. [`INIT_SD`] on the windows `x`, centred where the nonlinearity bends (see
-    /// [`Student::scale_to_data`]).
+    /// s.d. [`INIT_SD`] on the windows `x`, centred where the nonlinearity bends or
+    /// [`FitSettings::sparse_start`] s.d. below (see [`Student::scale_to_data`]).
     fn scale_channels(&mut self, x: &Tensor, layer: usize, channels: &[usize]) -> Result<()> {
         if channels.is_empty() {
             return Ok(());
@@ -463,7 +493,7 @@ impl Student {
                 let k = (INIT_SD / sd) as f32;
                 self.factors[factor].index_axis_mut(Axis(0), c).mapv_inplace(|w| w * k);
                 // Centre the channel so it starts where its nonlinearity bends.
-                self.factors[factor + 1][[c]] -= (mean * INIT_SD / sd) as f32;
+                self.factors[factor + 1][[c]] -= ((mean / sd + self.sparse_start) * INIT_SD) as f32;
             }
         }
         Ok(())
@@ -659,6 +689,7 @@ fn dataset(
         ReversalImage::Pink => reversing_texture,
         ReversalImage::Lines => reversing_lines,
         ReversalImage::Bars => reversing_bars,
+        ReversalImage::LoneBars => reversing_lone_bars,
         ReversalImage::Checkers => reversing_checkers,
     };
     for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {
@@ -883,6 +914,9 @@ struct Run {
     movies: Option<((u64, usize), Movies)>,
     /// Hidden channels revived after the latest epoch, in layers 1 and 2.
     revived: (usize, usize),
+    /// The running mean of the factors over the tail's steps and its count (see
+    /// [`FitSettings::average`]).
+    average: Option<(Vec<Tensor>, usize)>,
 }
 
 impl Run {
@@ -905,7 +939,7 @@ impl Run {
         let shapes: Vec<Vec<usize>> = student.factors.iter().map(|t| t.shape().to_vec()).collect();
         let adam = Adam::new(&shapes, s.lr);
         let clip = Clip::new(if s.separate_cells { CELLS } else { 1 }, s.clip);
-        Ok(Run { student, model, ids, adam, clip, rng, seed, movies: None, revived: (0, 0) })
+        Ok(Run { student, model, ids, adam, clip, rng, seed, movies: None, revived: (0, 0), average: None })
     }
 
     /// Write the student's factors into the training graph's parameters.
@@ -923,7 +957,8 @@ impl Run {
 
     /// Train epoch `epoch` (from 0) on fresh movies; returns the mean loss, overall and per cell.
     fn epoch(&mut self, s: &FitSettings, teacher: &Model, epoch: usize, weights: &[f32]) -> Result<(f64, Vec<f64>)> {
-        if epoch as f64 >= s.decay_after * s.epochs as f64 {
+        let tail = epoch as f64 >= s.decay_after * s.epochs as f64;
+        if tail {
             self.adam.lr = s.lr / 5.0;
         }
         let reversal = if epoch as f64 >= s.reversal_from * s.epochs as f64 { s.reversal_frames } else { 0 };
@@ -954,6 +989,9 @@ impl Run {
             }
             self.student.project();
             self.sync()?;
+            if s.average && tail {
+                self.accumulate();
+            }
             total += loss;
             cells.iter_mut().zip(per_cell).for_each(|(a, v)| *a += v);
             steps += 1;
@@ -964,12 +1002,47 @@ impl Run {
             let x = sample_windows(&train, REVIVE_WINDOWS, &mut rng)?;
             self.revived = self.student.revive(&x, &mut rng)?;
             self.sync()?;
+            if self.revived != (0, 0) {
+                // A revived channel's fresh weights do not belong in a mean with its dead ones.
+                self.average = None;
+            }
         }
         self.movies = Some((key, train));
         let n = steps.max(1) as f64;
         Ok((total / n, cells.iter().map(|c| c / n).collect()))
     }
 }
+
+impl Run {
+    /// Add the present factors to the running mean of the tail (see [`FitSettings::average`]).
+    fn accumulate(&mut self) {
+        match &mut self.average {
+            None => self.average = Some((self.student.factors.clone(), 1)),
+            Some((mean, n)) => {
+                *n += 1;
+                let k = 1.0 / (*n).min(AVERAGE_STEPS) as f32;
+                for (m, f) in mean.iter_mut().zip(&self.student.factors) {
+                    m.zip_mut_with(f, |m, &f| *m += (f - *m) * k);
+                }
+            }
+        }
+    }
+
+    /// The student the fit stands at: the tail's mean when averaging has begun, else the
+    /// present one.
+    fn current(&self) -> Student {
+        let mut student = self.student.clone();
+        if let Some((mean, _)) = &self.average {
+            student.factors = mean.clone();
+        }
+        student
+    }
+}
+
+/// Steps after which the tail's mean (see [`FitSettings::average`]) turns from a plain mean into
+/// an exponential one that forgets with this time constant (about one epoch of a fit with 8,000
+/// training windows and batches of 16).
+const AVERAGE_STEPS: usize = 500;
 
 /// Windows on which [`FitSettings::revive`] looks for dead channels: drawn from every movie of
 /// the epoch, they give a unit that answers a tenth of the frames many chances to show it.
@@ -1097,7 +1170,9 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     }
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
     let mut report = |run: &Run, restart: Option<usize>, epoch: usize, (loss, cells): (f64, Vec<f64>)| {
-        let (pooled, by_kind) = correlations(&run.model, &heldout, HELDOUT_SINGLE_KINDS)?;
+        let student = run.current();
+        let model = Model::from_proto(student.training_proto(), Path::new("fitted.onnx"), &LoadOptions::default())?;
+        let (pooled, by_kind) = correlations(&model, &heldout, HELDOUT_SINGLE_KINDS)?;
         progress(&Epoch {
             number: epoch + 1,
             restart,
@@ -1105,7 +1180,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
             cell_loss: cells.clone(),
             heldout_correlation: pooled.clone(),
             heldout_by_kind: by_kind,
-            model: run.student.proto(),
+            model: student.proto(),
             revived: run.revived,
         });
         if restart.is_none() {
@@ -1144,6 +1219,8 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     if let Some(cell) = s.finish_cell {
         // The finishing phase: the cell's channels alone, on fresh movies numbered after the
         // main epochs', with the same step decay within the phase.
+        run.student = run.current();
+        run.average = None;
         let part = run.student.cell_part(cell)?;
         let total = s.epochs + s.finish_epochs;
         let f = finishing(s, cell, (part.factors[1].shape()[0], part.factors[3].shape()[0]));
@@ -1152,13 +1229,13 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         let mut finish = Run::resume(&f, part, rng, s.seed)?;
         for epoch in s.epochs..total {
             let losses = finish.epoch(&f, &teacher, epoch, &only)?;
-            run.student.put_cell(cell, &finish.student);
+            run.student.put_cell(cell, &finish.current());
             run.sync()?;
             heldout_correlation = report(&run, None, epoch, losses)?;
         }
     }
     Ok((
-        run.student.proto(),
+        run.current().proto(),
         FitReport {
             heldout_correlation,
             epoch_loss,
@@ -1245,22 +1322,30 @@ mod tests {
 
     #[test]
     fn data_dependent_init_gives_each_channel_the_set_spread() {
-        let s = FitSettings { channels: (3, 2), ..Default::default() };
-        let mut rng = ChaCha8Rng::seed_from_u64(8);
-        let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut rng);
-        let movie = full_field_flicker(LAGS + 30, SIZE, SIZE, FLICKER_SD, 5, 3);
-        let data = vec![(movie, Array2::zeros((LAGS + 30, CELLS)))];
-        let x = sample_windows(&data, 24, &mut rng).unwrap();
-        student.scale_to_data(&x).unwrap();
-        let model = Model::from_proto(student.training_proto(), Path::new("s.onnx"), &LoadOptions::default()).unwrap();
-        let tape = model.graph.forward(x, &[]).unwrap();
-        for layer in ["conv1", "conv2"] {
-            let v = tape.value(model.graph.find(layer).unwrap());
-            for c in 0..v.shape()[1] {
-                let (mean, var) = moments(v.index_axis(Axis(1), c).iter().copied());
-                let sd = var.sqrt();
-                // conv2 is scaled after conv1, so both hold exactly on these windows.
-                assert!(mean.abs() < 1e-3 && (sd - INIT_SD).abs() < 1e-3, "{layer}:{c}: mean {mean} sd {sd}");
+        // Centred at the bend, and one s.d. below it.
+        for start in [0.0, 1.0] {
+            let s = FitSettings { channels: (3, 2), sparse_start: start, ..Default::default() };
+            let mut rng = ChaCha8Rng::seed_from_u64(8);
+            let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut rng);
+            let movie = full_field_flicker(LAGS + 30, SIZE, SIZE, FLICKER_SD, 5, 3);
+            let data = vec![(movie, Array2::zeros((LAGS + 30, CELLS)))];
+            let x = sample_windows(&data, 24, &mut rng).unwrap();
+            student.scale_to_data(&x).unwrap();
+            let model =
+                Model::from_proto(student.training_proto(), Path::new("s.onnx"), &LoadOptions::default()).unwrap();
+            let tape = model.graph.forward(x, &[]).unwrap();
+            for layer in ["conv1", "conv2"] {
+                let v = tape.value(model.graph.find(layer).unwrap());
+                for c in 0..v.shape()[1] {
+                    let (mean, var) = moments(v.index_axis(Axis(1), c).iter().copied());
+                    let sd = var.sqrt();
+                    // conv2 is scaled after conv1, so both hold exactly on these windows.
+                    let want = -start * INIT_SD;
+                    assert!(
+                        (mean - want).abs() < 1e-3 && (sd - INIT_SD).abs() < 1e-3,
+                        "{layer}:{c}: mean {mean} sd {sd}"
+                    );
+                }
             }
         }
     }
@@ -1401,6 +1486,41 @@ mod tests {
         assert!(student.factors[3].index_axis(Axis(0), 2).iter().any(|&w| w != 0.0));
         // Nothing dead, nothing revived.
         assert_eq!(student.clone().revive(&x, &mut rng).unwrap(), (0, 0));
+    }
+
+    #[test]
+    fn averaging_ships_the_mean_of_the_tails_steps() {
+        let s = FitSettings { channels: (2, 2), average: true, ..Default::default() };
+        let mut rng = ChaCha8Rng::seed_from_u64(8);
+        let student = Student::init(&s, &[0.5, 1.0, 2.0], &mut rng);
+        let mut run = Run::resume(&s, student, rng, 1).unwrap();
+        // Before the tail: the present student.
+        assert_eq!(run.current().factors, run.student.factors);
+        let steps: Vec<Vec<Tensor>> = (0..3)
+            .map(|k| run.student.factors.iter().map(|f| f.mapv(|v| v * (k + 1) as f32 + k as f32)).collect())
+            .collect();
+        for step in &steps {
+            run.student.factors = step.clone();
+            run.accumulate();
+        }
+        for (f, mean) in run.current().factors.iter().enumerate() {
+            for (i, &m) in mean.iter().enumerate() {
+                let want = steps.iter().map(|st| st[f].as_slice().unwrap()[i] as f64).sum::<f64>() / 3.0;
+                assert!((m as f64 - want).abs() < 1e-5 * (1.0 + want.abs()), "factor {f}[{i}]: {m} vs {want}");
+            }
+        }
+        // The optimiser's own weights are the last step's.
+        assert_eq!(run.student.factors, steps[2]);
+        // Past AVERAGE_STEPS steps the mean forgets: a step after that many zeros weighs
+        // 1 / AVERAGE_STEPS (a plain mean would give it 1 / (AVERAGE_STEPS + 1)).
+        run.average = None;
+        let zeros: Vec<Tensor> = steps[0].iter().map(|f| f.mapv(|_| 0.0)).collect();
+        run.student.factors = zeros;
+        (0..AVERAGE_STEPS).for_each(|_| run.accumulate());
+        run.student.factors.iter_mut().for_each(|f| f.fill(1.0));
+        run.accumulate();
+        let want = 1.0 / AVERAGE_STEPS as f32;
+        assert!(run.current().factors.iter().flatten().all(|&m| (m - want).abs() < 1e-7));
     }
 
     #[test]

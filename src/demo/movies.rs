@@ -180,9 +180,27 @@ pub fn reversing_lines(frames: usize, height: usize, width: usize, seed: u64) ->
 /// (the segments of [`reversing_texture`], 0.1 to 0.4 pixels per frame): the moving bars of the
 /// classic direction and reversal protocols, at one of eight orientations per movie.
 pub fn reversing_bars(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    bars_in_motion(frames, (height, width), BAR_GAPS, seed)
+}
+
+/// As [`reversing_bars`], with the bars 40 to 120 pixels apart: mostly one bar in view, as in
+/// the reversing-bar protocol, so steady motion of a lone bar over a receptive field (where the
+/// reversal cell stays silent) is common instead of rare.
+pub fn reversing_lone_bars(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    bars_in_motion(frames, (height, width), LONE_BAR_GAPS, seed)
+}
+
+/// Gaps between the bars of [`reversing_bars`], pixels.
+const BAR_GAPS: (f64, f64) = (6.0, 30.0);
+
+/// Gaps between the bars of [`reversing_lone_bars`], pixels.
+const LONE_BAR_GAPS: (f64, f64) = (40.0, 120.0);
+
+/// Bars `gaps` apart (see [`bar_image`]) in the motion of [`reversing_bars`].
+fn bars_in_motion(frames: usize, (height, width): (usize, usize), gaps: (f64, f64), seed: u64) -> Array3<f32> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let size = 4 * height.max(width).next_power_of_two();
-    let (image, (a, b)) = bar_image(size, &mut rng);
+    let (image, (a, b)) = bar_image(size, gaps, &mut rng);
     // Across the bars: the image's value depends on `a x + b y`, so its normal is (b, a) in
     // (down, right) order.
     let norm = ((a * a + b * b) as f64).sqrt();
@@ -213,13 +231,13 @@ fn random_sign(rng: &mut ChaCha8Rng) -> f64 {
     }
 }
 
-/// A periodic `size x size` gray image of parallel bars, 1 to 3 pixels wide with gaps of 6 to
-/// 30 pixels, each bright or dark at a contrast of 0.5 to 1. The bars' normal `(a, b)` is one
+/// A periodic `size x size` gray image of parallel bars, 1 to 3 pixels wide with gaps of
+/// `gaps.0` to `gaps.1` pixels, each bright or dark at a contrast of 0.5 to 1. The bars' normal `(a, b)` is one
 /// of eight integer directions (0, 45, 90, 135 degrees and the four in between at slopes of
 /// 1/2 and 2), so the stripes wrap seamlessly on the torus: the across-bar coordinate is
 /// `(a x + b y) mod size`, a bar of width `w` spanning `w * |(a, b)|` of it.
 /// Returns the image and its normal `(a, b)`.
-pub fn bar_image(size: usize, rng: &mut ChaCha8Rng) -> (Array2<f32>, (i64, i64)) {
+pub fn bar_image(size: usize, gaps: (f64, f64), rng: &mut ChaCha8Rng) -> (Array2<f32>, (i64, i64)) {
     const NORMALS: [(i64, i64); 8] = [(1, 0), (0, 1), (1, 1), (1, -1), (2, 1), (1, 2), (2, -1), (1, -2)];
     let (a, b) = NORMALS[rng.random_range(0..NORMALS.len())];
     let norm = ((a * a + b * b) as f64).sqrt();
@@ -232,7 +250,7 @@ pub fn bar_image(size: usize, rng: &mut ChaCha8Rng) -> (Array2<f32>, (i64, i64))
         let contrast = (sign * rng.random_range(0.5..1.0)) as f32;
         let span = (at.floor() as usize)..((at + width).ceil() as usize).min(size);
         profile[span].iter_mut().for_each(|v| *v = contrast);
-        at += width + rng.random_range(6.0..30.0) * norm;
+        at += width + rng.random_range(gaps.0..gaps.1) * norm;
     }
     let image = Array2::from_shape_fn((size, size), |(y, x)| {
         profile[(a * x as i64 + b * y as i64).rem_euclid(size as i64) as usize]
@@ -466,9 +484,26 @@ mod tests {
     }
 
     #[test]
+    fn lone_bars_are_sparser_than_bars() {
+        // Bars 1-3 px wide, 40-120 px apart: about 2 % of the image lit (6-30 px apart: about
+        // 10 %); the movie shows them.
+        for seed in 0..8 {
+            let lit = |gaps| {
+                let (image, _) = bar_image(256, gaps, &mut ChaCha8Rng::seed_from_u64(seed));
+                image.iter().filter(|&&v| v != 0.0).count() as f64 / image.len() as f64
+            };
+            let (lone, dense) = (lit(LONE_BAR_GAPS), lit(BAR_GAPS));
+            assert!(lone > 0.005 && lone < 0.06 && lone < dense / 2.0, "seed {seed}: lit {lone:.3} vs {dense:.3}");
+        }
+        let movie = reversing_lone_bars(300, 50, 50, 3);
+        assert_eq!(movie.shape(), &[300, 50, 50]);
+        assert!(movie.iter().any(|&v| v != 0.0));
+    }
+
+    #[test]
     fn bar_images_hold_parallel_bars_that_wrap_seamlessly() {
         for seed in 0..8 {
-            let (image, _) = bar_image(256, &mut ChaCha8Rng::seed_from_u64(seed));
+            let (image, _) = bar_image(256, BAR_GAPS, &mut ChaCha8Rng::seed_from_u64(seed));
             let lit = image.iter().filter(|&&v| v != 0.0).count() as f64 / image.len() as f64;
             assert!(lit > 0.02 && lit < 0.5, "seed {seed}: {lit:.3} of the image on bars");
             assert!(image.iter().all(|&v| v == 0.0 || (0.5..=1.0).contains(&v.abs())), "seed {seed}: contrasts");
