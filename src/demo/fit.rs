@@ -202,6 +202,9 @@ pub enum ReversalImage {
     Bars,
     /// Bars far apart, mostly one in view ([`reversing_lone_bars`]).
     LoneBars,
+    /// Parallel bars and lone bars by turns, one short movie each: the bars drive the reversal
+    /// cell often, the lone bars show it silent under a lone bar's steady motion.
+    MixedBars,
     /// A binary checkerboard ([`reversing_checkers`]).
     Checkers,
 }
@@ -685,17 +688,19 @@ fn dataset(
     // often the reversal cell is driven depends on the image and on the axis of its motion
     // (which a reversal keeps), so one long movie swings from no event to many between draws
     // (numpy replica, 300 lines, 500 frames: above 1 in 0 % to 12.6 % of frames over 8 seeds).
-    let make = match image {
+    let make = |k: usize| match image {
         ReversalImage::Pink => reversing_texture,
         ReversalImage::Lines => reversing_lines,
         ReversalImage::Bars => reversing_bars,
         ReversalImage::LoneBars => reversing_lone_bars,
+        ReversalImage::MixedBars if k % 2 == 0 => reversing_bars,
+        ReversalImage::MixedBars => reversing_lone_bars,
         ReversalImage::Checkers => reversing_checkers,
     };
     for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {
         // Their own seed stream: seed + 3 is the next epoch's noise seed.
         let frames = REVERSAL_CHUNK.min(reversal_frames - k * REVERSAL_CHUNK).max(LAGS + 1);
-        movies.push(make(frames, SIZE, SIZE, seed.wrapping_add(1 << 32).wrapping_add((k as u64) << 40)));
+        movies.push(make(k)(frames, SIZE, SIZE, seed.wrapping_add(1 << 32).wrapping_add((k as u64) << 40)));
     }
     movies
         .into_iter()
@@ -1655,6 +1660,11 @@ mod tests {
         // Different images: the first frames of the reversing movies differ.
         assert!(data[3].0.index_axis(Axis(0), 0) != data[4].0.index_axis(Axis(0), 0));
         assert!(data.iter().all(|(m, r)| r.nrows() == m.shape()[0]));
+        // Mixed bars: parallel bars, then lone bars, by turns, each as drawn alone.
+        let seed = 7u64.wrapping_add(1 << 32);
+        let data = dataset(&planted, (LAGS + 1, 0), (2 * REVERSAL_CHUNK, ReversalImage::MixedBars), 7).unwrap();
+        assert_eq!(data[3].0, reversing_bars(REVERSAL_CHUNK, SIZE, SIZE, seed));
+        assert_eq!(data[4].0, reversing_lone_bars(REVERSAL_CHUNK, SIZE, SIZE, seed.wrapping_add(1 << 40)));
     }
 
     #[test]
