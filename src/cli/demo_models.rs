@@ -110,6 +110,10 @@ pub struct DemoModelsArgs {
     /// so it starts active on fewer windows.
     #[arg(long, default_value_t = FitSettings::default().sparse_start)]
     pub sparse_start: f64,
+    /// A probe: with --cell 1, hold the first four first-layer channels at the planted
+    /// direction-selective pathways and train the rest.
+    #[arg(long)]
+    pub planted_first_layer: bool,
 }
 
 /// Parse `C1,C2`.
@@ -162,6 +166,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             average: a.average,
             decay_after: a.decay_after,
             sparse_start: a.sparse_start,
+            planted_first_layer: a.planted_first_layer,
             ..Default::default()
         };
         let out = OutputDir::create(&a.out)?;

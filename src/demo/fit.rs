@@ -6,7 +6,7 @@ use super::movies::{
     binary_noise, full_field_flicker, naturalistic, reversing_bars, reversing_checkers, reversing_lines,
     reversing_lone_bars, reversing_texture, scene_with_object,
 };
-use super::planted::{synthetic_sensor, LAGS, SIZE};
+use super::planted::{kernel, synthetic_sensor, DS_THRESHOLD, K1, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
 use crate::model::builder::{int_attr, OnnxBuilder};
 use crate::model::{LoadOptions, Model};
@@ -130,6 +130,11 @@ pub struct FitSettings {
     /// bend learnt tonic, weakly direction-selective channels instead (docs/performance.md,
     /// session 12).
     pub sparse_start: f64,
+    /// A probe, not a fit: with `--cell 1`, start the first four first-layer channels at the
+    /// planted direction-selective pathways 4-7 (their rank-2 parts and thresholds) and hold
+    /// them fixed, so the run shows whether the rest of the student learns the reversal once
+    /// its first layer is right (docs/performance.md, session 12).
+    pub planted_first_layer: bool,
 }
 
 impl Default for FitSettings {
@@ -165,6 +170,7 @@ impl Default for FitSettings {
             revive: false,
             average: false,
             sparse_start: 0.0,
+            planted_first_layer: false,
         }
     }
 }
@@ -265,6 +271,8 @@ struct Student {
     positive_readout: bool,
     /// Where hidden channels start (see [`FitSettings::sparse_start`]).
     sparse_start: f64,
+    /// Leading first-layer channels held fixed (see [`FitSettings::planted_first_layer`]).
+    frozen: usize,
 }
 
 impl Student {
@@ -295,6 +303,7 @@ impl Student {
             hidden: s.hidden,
             positive_readout: s.positive_readout,
             sparse_start: s.sparse_start,
+            frozen: 0,
         };
         student.mask_factors();
         if student.positive_readout {
@@ -369,6 +378,7 @@ impl Student {
             hidden: self.hidden,
             positive_readout: self.positive_readout,
             sparse_start: self.sparse_start,
+            frozen: 0,
         })
     }
 
@@ -451,7 +461,7 @@ impl Student {
     /// cells 0 and 2 are such cells.
     fn scale_to_data(&mut self, x: &Tensor) -> Result<()> {
         let (c1, c2) = (self.factors[1].shape()[0], self.factors[3].shape()[0]);
-        self.scale_channels(x, 1, &(0..c1).collect::<Vec<_>>())?;
+        self.scale_channels(x, 1, &(self.frozen..c1).collect::<Vec<_>>())?;
         self.scale_channels(x, 2, &(0..c2).collect::<Vec<_>>())?;
         if self.positive_readout {
             self.scale_readout(x)?;
@@ -537,7 +547,7 @@ impl Student {
                 t.index_axis_mut(Axis(0), r).assign(&fresh);
             }
         };
-        let first = dead(self, "layer1")?;
+        let first: Vec<usize> = dead(self, "layer1")?.into_iter().filter(|&c| c >= self.frozen).collect();
         let temporal: Vec<usize> = first.iter().flat_map(|&c| c * RANK..(c + 1) * RANK).collect();
         redraw(&mut self.factors[0], &temporal, LAGS);
         redraw(&mut self.factors[1], &first, RANK * k1 * k1);
@@ -556,6 +566,52 @@ impl Student {
         self.scale_channels(x, 2, &second)?;
         self.project();
         Ok((first.len(), second.len()))
+    }
+
+    /// Set the first four first-layer channels to the planted direction-selective pathways 4-7
+    /// (the [`RANK`] leading singular terms of each kernel, the planted threshold as bias) and
+    /// hold them fixed (see [`FitSettings::planted_first_layer`]).
+    fn plant_first_layer(&mut self) -> Result<()> {
+        let (c1, k1) = (self.factors[1].shape()[0], self.factors[1].shape()[2]);
+        if self.per_cell.is_some() || c1 < 4 || k1 != K1 {
+            return Err(crate::Error::Usage(format!(
+                "fit: --planted-first-layer puts the 4 planted direction-selective pathways into the first \
+                 layer of a one-cell fit (--cell 1, no --separate-cells, at least 4 first-layer channels, \
+                 kernels of {K1} px); got {c1} channels of {k1} px{}",
+                if self.per_cell.is_some() { " with separate cells" } else { "" }
+            )));
+        }
+        for ch in 0..4 {
+            let k = kernel(4 + ch);
+            let m = nalgebra::DMatrix::from_fn(LAGS, K1 * K1, |l, p| k[[l, p / K1, p % K1]] as f64);
+            let svd = m.svd(true, true);
+            let (Some(u), Some(vt)) = (svd.u, svd.v_t) else {
+                return Err(crate::Error::Usage("fit: no singular vectors of a planted kernel".into()));
+            };
+            for r in 0..RANK {
+                for l in 0..LAGS {
+                    self.factors[0][[ch * RANK + r, l, 0, 0]] = u[(l, r)] as f32;
+                }
+                for p in 0..K1 * K1 {
+                    self.factors[1][[ch, r, p / K1, p % K1]] = (svd.singular_values[r] * vt[(r, p)]) as f32;
+                }
+            }
+            self.factors[2][[ch]] = -DS_THRESHOLD;
+        }
+        self.frozen = 4;
+        Ok(())
+    }
+
+    /// Zero the gradients of the first-layer channels held fixed (see
+    /// [`Student::plant_first_layer`]): with zero gradients Adam never moves them.
+    fn freeze(&self, grads: &mut [Tensor]) {
+        for c in 0..self.frozen {
+            for r in 0..RANK {
+                grads[0].index_axis_mut(Axis(0), c * RANK + r).fill(0.0);
+            }
+            grads[1].index_axis_mut(Axis(0), c).fill(0.0);
+            grads[2][[c]] = 0.0;
+        }
     }
 
     /// The factorised graph the fit trains.
@@ -930,6 +986,9 @@ impl Run {
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
         let means: Vec<f32> = cell_moments(calibration).iter().map(|&(m, _)| m as f32).collect();
         let mut student = Student::init(s, &means, &mut rng);
+        if s.planted_first_layer {
+            student.plant_first_layer()?;
+        }
         student.scale_to_data(&sample_windows(calibration, 96, &mut rng)?)?;
         Run::resume(s, student, rng, seed)
     }
@@ -986,6 +1045,7 @@ impl Run {
             let (loss, per_cell, full) = split_gradients(&self.model, &self.ids, &train, batch, (s.loss, weights))?;
             let mut grads = self.student.chain(full);
             self.student.mask(&mut grads);
+            self.student.freeze(&mut grads);
             let student = &self.student;
             self.clip.apply(&mut grads, &|f, i| student.group(f, i));
             {
@@ -1491,6 +1551,33 @@ mod tests {
         assert!(student.factors[3].index_axis(Axis(0), 2).iter().any(|&w| w != 0.0));
         // Nothing dead, nothing revived.
         assert_eq!(student.clone().revive(&x, &mut rng).unwrap(), (0, 0));
+    }
+
+    #[test]
+    fn the_planted_first_layer_probe_holds_the_planted_pathways_fixed() {
+        let s = FitSettings { channels: (6, 4), only_cell: Some(1), planted_first_layer: true, ..Default::default() };
+        let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(2));
+        student.plant_first_layer().unwrap();
+        let full = student.conv1();
+        for ch in 0..4 {
+            // Rank 2 holds 98.5 % of each planted kernel's energy: r about 0.99.
+            let planted: Vec<f64> = kernel(4 + ch).iter().map(|&v| v as f64).collect();
+            let held: Vec<f64> = full.index_axis(Axis(0), ch).iter().map(|&v| v as f64).collect();
+            let r = correlation(&planted, &held);
+            assert!(r > 0.99, "channel {ch}: r {r}");
+            assert_eq!(student.factors[2][[ch]], -DS_THRESHOLD);
+        }
+        // Their gradients are zeroed; the other channels' are not.
+        let mut grads: Vec<Tensor> = student.factors.iter().map(|f| f.mapv(|_| 1.0)).collect();
+        student.freeze(&mut grads);
+        assert!(grads[0].slice_axis(Axis(0), Slice::from(0..4 * RANK)).iter().all(|&g| g == 0.0));
+        assert!(grads[1].slice_axis(Axis(0), Slice::from(0..4)).iter().all(|&g| g == 0.0));
+        assert!(grads[1].slice_axis(Axis(0), Slice::from(4..6)).iter().all(|&g| g == 1.0));
+        assert!(grads[3].iter().all(|&g| g == 1.0));
+        // Only a one-cell fit with room for the four pathways takes them.
+        let s = FitSettings { channels: (6, 3), separate_cells: true, ..Default::default() };
+        let e = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(2)).plant_first_layer();
+        assert!(e.unwrap_err().to_string().contains("--planted-first-layer"));
     }
 
     #[test]

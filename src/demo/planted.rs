@@ -58,7 +58,7 @@ const DS_WIDTH_MS: f64 = 40.0;
 /// Threshold of the direction-selective pathways (their drive by a full-contrast bar at the
 /// preferred speed is about 7, in the null direction about half that): rectifying above it
 /// makes them direction selective.
-const DS_THRESHOLD: f32 = 4.0;
+pub(crate) const DS_THRESHOLD: f32 = 4.0;
 
 /// Delay of the direction-selective pathways' inhibitory copies, ms.
 const DS_DELAY_MS: f64 = 80.0;
