@@ -127,8 +127,8 @@ pub struct FitSettings {
     /// nonlinearity (0: at the bend, half its windows active; 1: about a sixth of them). A
     /// rectified unit centred at its bend stays nearly linear on most inputs; the planted
     /// reversal cell's pathways and units are silent on most frames, and fits started at the
-    /// bend learnt tonic, weakly direction-selective channels instead (docs/performance.md,
-    /// session 12).
+    /// bend learnt channels that answer a bar in both directions instead. Starting one s.d.
+    /// below did not change that (docs/performance.md, session 12).
     pub sparse_start: f64,
     /// A probe, not a fit: with `--cell 1`, start the first four first-layer channels at the
     /// planted direction-selective pathways 4-7 (their rank-2 parts and thresholds) and hold
@@ -1076,9 +1076,7 @@ impl Run {
         let n = steps.max(1) as f64;
         Ok((total / n, cells.iter().map(|c| c / n).collect()))
     }
-}
 
-impl Run {
     /// Add the present factors to the running mean of the tail (see [`FitSettings::average`]).
     fn accumulate(&mut self) {
         match &mut self.average {
@@ -1236,8 +1234,15 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
     let mut report = |run: &Run, restart: Option<usize>, epoch: usize, (loss, cells): (f64, Vec<f64>)| {
         let student = run.current();
-        let model = Model::from_proto(student.training_proto(), Path::new("fitted.onnx"), &LoadOptions::default())?;
-        let (pooled, by_kind) = correlations(&model, &heldout, HELDOUT_SINGLE_KINDS)?;
+        // The training graph holds the present weights; the tail's mean needs its own graph.
+        let averaged;
+        let model = if run.average.is_some() {
+            averaged = Model::from_proto(student.training_proto(), Path::new("fitted.onnx"), &LoadOptions::default())?;
+            &averaged
+        } else {
+            &run.model
+        };
+        let (pooled, by_kind) = correlations(model, &heldout, HELDOUT_SINGLE_KINDS)?;
         progress(&Epoch {
             number: epoch + 1,
             restart,

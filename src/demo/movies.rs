@@ -232,10 +232,10 @@ fn random_sign(rng: &mut ChaCha8Rng) -> f64 {
 }
 
 /// A periodic `size x size` gray image of parallel bars, 1 to 3 pixels wide with gaps of
-/// `gaps.0` to `gaps.1` pixels, each bright or dark at a contrast of 0.5 to 1. The bars' normal `(a, b)` is one
-/// of eight integer directions (0, 45, 90, 135 degrees and the four in between at slopes of
-/// 1/2 and 2), so the stripes wrap seamlessly on the torus: the across-bar coordinate is
-/// `(a x + b y) mod size`, a bar of width `w` spanning `w * |(a, b)|` of it.
+/// `gaps.0` to `gaps.1` pixels, each bright or dark at a contrast of 0.5 to 1. The bars' normal
+/// `(a, b)` is one of eight integer directions (0, 45, 90, 135 degrees and the four in between
+/// at slopes of 1/2 and 2), so the stripes wrap seamlessly on the torus: the across-bar
+/// coordinate is `(a x + b y) mod size`, a bar of width `w` spanning `w * |(a, b)|` of it.
 /// Returns the image and its normal `(a, b)`.
 pub fn bar_image(size: usize, gaps: (f64, f64), rng: &mut ChaCha8Rng) -> (Array2<f32>, (i64, i64)) {
     const NORMALS: [(i64, i64); 8] = [(1, 0), (0, 1), (1, 1), (1, -1), (2, 1), (1, 2), (2, -1), (1, -2)];
