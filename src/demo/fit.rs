@@ -4,7 +4,7 @@
 
 use super::movies::{
     binary_noise, full_field_flicker, naturalistic, reversing_bars, reversing_checkers, reversing_lines,
-    reversing_lone_bars, reversing_texture, scene_with_object,
+    reversing_lone_bars, reversing_texture, scene_with_object, steady_bars,
 };
 use super::planted::{kernel, synthetic_sensor, DS_THRESHOLD, K1, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
@@ -211,6 +211,9 @@ pub enum ReversalImage {
     /// Parallel bars and lone bars by turns, one short movie each: the bars drive the reversal
     /// cell often, the lone bars show it silent under a lone bar's steady motion.
     MixedBars,
+    /// As `mixed-bars`, each velocity held 40 to 160 frames instead of 15 to 60 ([`steady_bars`]):
+    /// steady motion long enough for the reversal cell to fall silent.
+    SteadyBars,
     /// A binary checkerboard ([`reversing_checkers`]).
     Checkers,
 }
@@ -751,6 +754,8 @@ fn dataset(
         ReversalImage::LoneBars => reversing_lone_bars,
         ReversalImage::MixedBars if k % 2 == 0 => reversing_bars,
         ReversalImage::MixedBars => reversing_lone_bars,
+        ReversalImage::SteadyBars if k % 2 == 0 => |f, h, w, s| steady_bars(f, h, w, false, s),
+        ReversalImage::SteadyBars => |f, h, w, s| steady_bars(f, h, w, true, s),
         ReversalImage::Checkers => reversing_checkers,
     };
     for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {

@@ -180,15 +180,32 @@ pub fn reversing_lines(frames: usize, height: usize, width: usize, seed: u64) ->
 /// (the segments of [`reversing_texture`], 0.1 to 0.4 pixels per frame): the moving bars of the
 /// classic direction and reversal protocols, at one of eight orientations per movie.
 pub fn reversing_bars(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
-    bars_in_motion(frames, (height, width), BAR_GAPS, seed)
+    bars_in_motion(frames, (height, width), BAR_GAPS, SEGMENT_FRAMES, seed)
 }
 
 /// As [`reversing_bars`], with the bars 40 to 120 pixels apart: mostly one bar in view, as in
 /// the reversing-bar protocol, so steady motion of a lone bar over a receptive field (where the
 /// reversal cell stays silent) is common instead of rare.
 pub fn reversing_lone_bars(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
-    bars_in_motion(frames, (height, width), LONE_BAR_GAPS, seed)
+    bars_in_motion(frames, (height, width), LONE_BAR_GAPS, SEGMENT_FRAMES, seed)
 }
+
+/// As [`reversing_bars`] (`lone`: [`reversing_lone_bars`]), each velocity held 40 to 160 frames
+/// instead of 15 to 60: long enough for steady motion to outlast the reversal cell's memory
+/// (its delayed copies lag 180 ms behind the response), so the movie shows that cell both
+/// bursting at a reversal and falling silent while a bar keeps moving, as the reversing-bar
+/// protocol does. With the short segments most bar frames follow a reversal or a new velocity
+/// within 300 ms.
+pub fn steady_bars(frames: usize, height: usize, width: usize, lone: bool, seed: u64) -> Array3<f32> {
+    let gaps = if lone { LONE_BAR_GAPS } else { BAR_GAPS };
+    bars_in_motion(frames, (height, width), gaps, STEADY_SEGMENT_FRAMES, seed)
+}
+
+/// Frames each velocity of the reversing movies is held (inclusive range).
+const SEGMENT_FRAMES: (usize, usize) = (15, 60);
+
+/// Frames each velocity of [`steady_bars`] is held (inclusive range).
+const STEADY_SEGMENT_FRAMES: (usize, usize) = (40, 160);
 
 /// Gaps between the bars of [`reversing_bars`], pixels.
 const BAR_GAPS: (f64, f64) = (6.0, 30.0);
@@ -197,7 +214,13 @@ const BAR_GAPS: (f64, f64) = (6.0, 30.0);
 const LONE_BAR_GAPS: (f64, f64) = (40.0, 120.0);
 
 /// Bars `gaps` apart (see [`bar_image`]) in the motion of [`reversing_bars`].
-fn bars_in_motion(frames: usize, (height, width): (usize, usize), gaps: (f64, f64), seed: u64) -> Array3<f32> {
+fn bars_in_motion(
+    frames: usize,
+    (height, width): (usize, usize),
+    gaps: (f64, f64),
+    segments: (usize, usize),
+    seed: u64,
+) -> Array3<f32> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let size = 4 * height.max(width).next_power_of_two();
     let (image, (a, b)) = bar_image(size, gaps, &mut rng);
@@ -208,7 +231,7 @@ fn bars_in_motion(frames: usize, (height, width): (usize, usize), gaps: (f64, f6
         let speed = rng.random_range(0.1..0.4) * random_sign(rng);
         (speed * b as f64 / norm, speed * a as f64 / norm)
     };
-    moving_view(&image, frames, (height, width), &across, &mut rng)
+    moving_view(&image, frames, (height, width), &across, segments, &mut rng)
 }
 
 /// A binary checkerboard texture (2-pixel checkers, 100 um, each bright or dark at full
@@ -301,28 +324,29 @@ fn reversing_view(
         let (speed, angle) = (rng.random_range(0.1..0.4), rng.random_range(0.0..std::f64::consts::TAU));
         (speed * angle.sin(), speed * angle.cos())
     };
-    moving_view(image, frames, (height, width), &any_direction, rng)
+    moving_view(image, frames, (height, width), &any_direction, SEGMENT_FRAMES, rng)
 }
 
 /// A view of the periodic `image` moving at constant velocities drawn by `velocity` (pixels per
-/// frame, `(down, right)`), each held 15 to 60 frames; at a segment's end the motion reverses
-/// (probability 0.7) or takes a new velocity.
+/// frame, `(down, right)`), each held for a number of frames drawn from `segments` (inclusive);
+/// at a segment's end the motion reverses (probability 0.7) or takes a new velocity.
 fn moving_view(
     image: &Array2<f32>,
     frames: usize,
     (height, width): (usize, usize),
     velocity: &dyn Fn(&mut ChaCha8Rng) -> (f64, f64),
+    segments: (usize, usize),
     rng: &mut ChaCha8Rng,
 ) -> Array3<f32> {
     let size = image.nrows();
     let (mut y, mut x) = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
     let mut v = velocity(rng);
-    let mut left = rng.random_range(15..=60);
+    let mut left = rng.random_range(segments.0..=segments.1);
     let mut movie = Array3::zeros((frames, height, width));
     for t in 0..frames {
         if left == 0 {
             v = if rng.random_range(0.0..1.0) < 0.7 { (-v.0, -v.1) } else { velocity(rng) };
-            left = rng.random_range(15..=60);
+            left = rng.random_range(segments.0..=segments.1);
         }
         left -= 1;
         y = (y + v.0).rem_euclid(size as f64);
@@ -559,6 +583,33 @@ mod tests {
         assert!(diff(0, 10) > moved, "the view does not move");
         let reversals = (12..388).filter(|&t| (1..=10).all(|k| diff(t + k, t - k) < 1e-3)).count();
         assert!(reversals >= 2, "{reversals} reversals in 400 frames");
+    }
+
+    /// Frames `t` of the movie `m` at which it reverses (frame t + k equals frame t - k for k
+    /// up to 10) while showing something there (not gray throughout).
+    fn reversal_frames(m: &Array3<f32>) -> Vec<usize> {
+        let frame = |t: usize| m.index_axis(ndarray::Axis(0), t);
+        let diff = |a: usize, b: usize| (&frame(a) - &frame(b)).mapv(f32::abs).fold(0.0f32, |x, &y| x.max(y));
+        (12..m.shape()[0] - 12)
+            .filter(|&t| {
+                diff(t - 10, t + 10) < 1e-3 && diff(t - 10, t) > 0.1 && (1..=10).all(|k| diff(t + k, t - k) < 1e-3)
+            })
+            .collect()
+    }
+
+    #[test]
+    fn steady_bars_hold_each_velocity_far_longer_than_the_reversing_bars() {
+        // Over the same frames and seeds, the reversing bars reverse within 15 to 60 frames of
+        // their last change, the steady bars within 40 to 160: every two reversals of the steady
+        // bars lie at least 40 frames apart, and they reverse less often.
+        let (mut short, mut steady) = (0, 0);
+        for seed in 0..4 {
+            short += reversal_frames(&reversing_bars(600, 50, 50, seed)).len();
+            let r = reversal_frames(&steady_bars(600, 50, 50, false, seed));
+            assert!(r.windows(2).all(|w| w[1] - w[0] >= 40), "seed {seed}: reversals at {r:?}");
+            steady += r.len();
+        }
+        assert!(steady >= 2 && short > 2 * steady, "{short} reversals of the bars, {steady} of the steady bars");
     }
 
     #[test]
