@@ -115,6 +115,18 @@ pub struct DemoModelsArgs {
     /// direction-selective pathways and train the rest.
     #[arg(long)]
     pub planted_first_layer: bool,
+    /// Weight of a group-sparsity penalty that pushes each second-layer unit to read few
+    /// first-layer channels (0: none).
+    #[arg(long, value_parser = non_negative, default_value_t = FitSettings::default().group_sparsity)]
+    pub group_sparsity: f32,
+}
+
+/// Parse a number that must be zero or more.
+fn non_negative(s: &str) -> Result<f32, String> {
+    match s.parse::<f32>() {
+        Ok(v) if v >= 0.0 && v.is_finite() => Ok(v),
+        _ => Err(format!("expected a number of zero or more, got '{s}'")),
+    }
 }
 
 /// Parse `C1,C2`.
@@ -168,6 +180,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             decay_after: a.decay_after,
             sparse_start: a.sparse_start,
             planted_first_layer: a.planted_first_layer,
+            group_sparsity: a.group_sparsity,
             ..Default::default()
         };
         let out = OutputDir::create(&a.out)?;

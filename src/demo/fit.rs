@@ -135,6 +135,13 @@ pub struct FitSettings {
     /// them fixed, so the run shows whether the rest of the student learns the reversal once
     /// its first layer is right (docs/performance.md, session 12).
     pub planted_first_layer: bool,
+    /// Weight of a group-sparsity penalty on the second layer: `group_sparsity` times the sum,
+    /// over each second-layer unit and each first-layer channel it reads, of the L2 norm of that
+    /// unit's kernel on that channel (the group lasso: Yuan & Lin, J. R. Stat. Soc. B 2006). It
+    /// pushes each unit to read few channels. The planted reversal units each read one direction
+    /// and its delayed copy; fitted units read both directions, and a unit summing both cancels
+    /// at the reversal (docs/performance.md, session 12, probes P1 and P2). 0: none.
+    pub group_sparsity: f32,
 }
 
 impl Default for FitSettings {
@@ -171,6 +178,7 @@ impl Default for FitSettings {
             average: false,
             sparse_start: 0.0,
             planted_first_layer: false,
+            group_sparsity: 0.0,
         }
     }
 }
@@ -603,6 +611,28 @@ impl Student {
         }
         self.frozen = 4;
         Ok(())
+    }
+
+    /// Add the gradient of the group-sparsity penalty (see [`FitSettings::group_sparsity`]) to
+    /// the second layer's weight gradient: `weight * w_g / |w_g|` for each group `w_g` (a unit's
+    /// kernel on one input channel); groups at zero (the cross-cell blocks) get none.
+    fn penalise_groups(&self, grads: &mut [Tensor], weight: f32) {
+        if weight == 0.0 {
+            return;
+        }
+        let w = &self.factors[3];
+        for u in 0..w.shape()[0] {
+            for c in 0..w.shape()[1] {
+                let group = w.index_axis(Axis(0), u);
+                let group = group.index_axis(Axis(0), c);
+                let norm = group.iter().map(|v| f64::from(*v) * f64::from(*v)).sum::<f64>().sqrt() as f32;
+                if norm > 0.0 {
+                    let mut g = grads[3].index_axis_mut(Axis(0), u);
+                    let mut g = g.index_axis_mut(Axis(0), c);
+                    g.zip_mut_with(&group, |gv, &wv| *gv += weight * wv / norm);
+                }
+            }
+        }
     }
 
     /// Zero the gradients of the first-layer channels held fixed (see
@@ -1049,6 +1079,7 @@ impl Run {
             crate::interrupt::check()?;
             let (loss, per_cell, full) = split_gradients(&self.model, &self.ids, &train, batch, (s.loss, weights))?;
             let mut grads = self.student.chain(full);
+            self.student.penalise_groups(&mut grads, s.group_sparsity);
             self.student.mask(&mut grads);
             self.student.freeze(&mut grads);
             let student = &self.student;
@@ -1588,6 +1619,47 @@ mod tests {
         let s = FitSettings { channels: (6, 3), separate_cells: true, ..Default::default() };
         let e = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(2)).plant_first_layer();
         assert!(e.unwrap_err().to_string().contains("--planted-first-layer"));
+    }
+
+    #[test]
+    fn the_group_penalty_gradient_matches_central_differences_and_skips_zero_groups() {
+        // The penalty weight * sum over (unit, channel) of |w_g|: its gradient against central
+        // differences in f64, on a student with one group zeroed.
+        let s = FitSettings { channels: (3, 2), kernels: (5, 3), ..Default::default() };
+        let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(4));
+        student.factors[3].index_axis_mut(Axis(0), 1).index_axis_mut(Axis(0), 2).fill(0.0);
+        let weight = 0.3f32;
+        let penalty = |w: &Tensor| -> f64 {
+            let (units, channels) = (w.shape()[0], w.shape()[1]);
+            (0..units * channels)
+                .map(|i| {
+                    let g = w.index_axis(Axis(0), i / channels);
+                    g.index_axis(Axis(0), i % channels).iter().map(|&v| f64::from(v).powi(2)).sum::<f64>().sqrt()
+                })
+                .sum::<f64>()
+                * f64::from(weight)
+        };
+        let mut grads: Vec<Tensor> = student.factors.iter().map(|f| f.mapv(|_| 0.0)).collect();
+        student.penalise_groups(&mut grads, weight);
+        let h = 1e-3f32;
+        for (i, &g) in grads[3].iter().enumerate() {
+            let (unit, channel) = (i / 27, i / 9 % 3);
+            if unit == 1 && channel == 2 {
+                assert_eq!(g, 0.0, "a zero group gets no gradient");
+                continue;
+            }
+            let mut w = student.factors[3].clone();
+            let v = w.as_slice_mut().unwrap();
+            v[i] += h;
+            let up = penalty(&w);
+            w.as_slice_mut().unwrap()[i] -= 2.0 * h;
+            let numeric = (up - penalty(&w)) / (2.0 * f64::from(h));
+            assert!((numeric - f64::from(g)).abs() < 2e-3, "weight {i}: analytic {g}, numeric {numeric}");
+        }
+        // No weight, no change.
+        let mut none: Vec<Tensor> = student.factors.iter().map(|f| f.mapv(|_| 0.0)).collect();
+        student.penalise_groups(&mut none, 0.0);
+        assert!(none[3].iter().all(|&g| g == 0.0));
     }
 
     #[test]
