@@ -4,7 +4,9 @@ while the bar moves right (the 40 frames before the reversal) and left (frames 3
 it, once the filters' 400 ms memory holds leftward motion only), their
 direction-selectivity index (right - left) / (right + left) and how often it is active
 anywhere; for each second-layer unit that cell 1 reads, its readout-weighted contribution to
-cell 1 in the protocol's smooth-motion and reversal windows. Works on the planted and on fitted
+cell 1 in the protocol's smooth-motion and reversal windows, and the sum of its kernel on each
+first-layer channel (a planted reversal unit reads one direction, +8, and its delayed copy, -8;
+a unit that reads both directions cancels at the reversal). Works on the planted and on fitted
 models (two convolutions, a dense readout; the hidden nonlinearities are the graph's Relu or
 Softplus nodes).
 
@@ -33,6 +35,7 @@ def main():
     session = ort.InferenceSession(model.SerializeToString())
     weights = {i.name: numpy_helper.to_array(i) for i in model.graph.initializer}
     readout = next(v for k, v in weights.items() if k.startswith("readout") and v.ndim == 2)
+    conv2 = weights["conv2.weight"]
     movie = np.load(f"{stim}/movie.npy").astype(np.float32)
     windows = {w["name"]: (w["start"], w["end"]) for w in json.load(open(f"{stim}/stimulus.json"))["windows"]}
     x = np.stack([movie[t - LAGS + 1 : t + 1] for t in range(LAGS - 1, movie.shape[0])])
@@ -57,6 +60,8 @@ def main():
         mean = lambda name: contribution[frame(windows[name][0]) : frame(windows[name][1])].mean()
         active = (layer2[:, u].max(axis=(1, 2)) > 0).mean()
         print(f"  unit {u}: readout sum {w.sum():+.3f}, smooth {mean('smooth'):+.3f}, reversal {mean('reversal'):+.3f}, active on {100 * active:.0f} % of frames")
+        sums = " ".join(f"{conv2[u, k].sum():+.1f}" for k in range(conv2.shape[1]))
+        print(f"    kernel sum per first-layer channel: {sums}; bias {weights['conv2.bias'][u]:+.2f}")
     print(f"onnxruntime {ort.__version__}, numpy {np.__version__}")
 
 
