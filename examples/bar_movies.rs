@@ -4,7 +4,7 @@
 //!
 //!     cargo run --release --example bar_movies -- OUT_DIR
 
-use sufficit::demo::movies::{reversing_bars, steady_bars};
+use sufficit::demo::movies::{reversing_bars, steady_bars, steady_lone_bars};
 use sufficit::demo::planted::SIZE;
 
 fn main() -> Result<(), Box<dyn std::error::Error>> {
@@ -14,8 +14,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     for k in 0..24u64 {
         let seed = 777_000 + k;
         let (kind, movie) = match k % 3 {
-            0 => ("steady", steady_bars(250, SIZE, SIZE, false, seed)),
-            1 => ("steady-lone", steady_bars(250, SIZE, SIZE, true, seed)),
+            0 => ("steady", steady_bars(250, SIZE, SIZE, seed)),
+            1 => ("steady-lone", steady_lone_bars(250, SIZE, SIZE, seed)),
             _ => ("short", reversing_bars(250, SIZE, SIZE, seed)),
         };
         let path = out.join(format!("{kind}-{k}.npy"));

@@ -4,7 +4,7 @@
 
 use super::movies::{
     binary_noise, full_field_flicker, naturalistic, reversing_bars, reversing_checkers, reversing_lines,
-    reversing_lone_bars, reversing_texture, scene_with_object, steady_bars,
+    reversing_lone_bars, reversing_texture, scene_with_object, steady_bars, steady_lone_bars,
 };
 use super::planted::{kernel, synthetic_sensor, DS_THRESHOLD, K1, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
@@ -219,13 +219,15 @@ pub enum ReversalImage {
     /// Parallel bars and lone bars by turns, one short movie each: the bars drive the reversal
     /// cell often, the lone bars show it silent under a lone bar's steady motion.
     MixedBars,
-    /// As `mixed-bars`, each velocity held 40 to 160 frames instead of 15 to 60 ([`steady_bars`]):
+    /// As `mixed-bars`, each velocity held 40 to 160 frames instead of 15 to 60 ([`steady_bars`],
+    /// [`steady_lone_bars`]):
     /// steady motion long enough for the reversal cell to fall silent.
     SteadyBars,
     /// Parallel bars in short segments (`bars`), then parallel and lone bars in long ones
     /// (`steady-bars`), by turns: the short segments hold most of the reversals that happen
-    /// over the receptive field (numpy count on the planted sensor: 16 of 21 bursts in
-    /// `bars` follow a reversal, none of 13 in steady parallel bars), the long ones the steady
+    /// over the receptive field (`scripts/reversal_events.py` on the planted sensor, two draws:
+    /// 21 of 34 bursts in `bars` follow a reversal, 3 of 25 in steady parallel bars), the long
+    /// ones the steady
     /// motion under which the reversal cell falls silent.
     VariedBars,
     /// A binary checkerboard ([`reversing_checkers`]).
@@ -790,11 +792,11 @@ fn dataset(
         ReversalImage::LoneBars => reversing_lone_bars,
         ReversalImage::MixedBars if k % 2 == 0 => reversing_bars,
         ReversalImage::MixedBars => reversing_lone_bars,
-        ReversalImage::SteadyBars if k % 2 == 0 => |f, h, w, s| steady_bars(f, h, w, false, s),
-        ReversalImage::SteadyBars => |f, h, w, s| steady_bars(f, h, w, true, s),
+        ReversalImage::SteadyBars if k % 2 == 0 => steady_bars,
+        ReversalImage::SteadyBars => steady_lone_bars,
         ReversalImage::VariedBars if k % 3 == 0 => reversing_bars,
-        ReversalImage::VariedBars if k % 3 == 1 => |f, h, w, s| steady_bars(f, h, w, false, s),
-        ReversalImage::VariedBars => |f, h, w, s| steady_bars(f, h, w, true, s),
+        ReversalImage::VariedBars if k % 3 == 1 => steady_bars,
+        ReversalImage::VariedBars => steady_lone_bars,
         ReversalImage::Checkers => reversing_checkers,
     };
     for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {
@@ -1513,8 +1515,8 @@ mod tests {
         let own = |k: u64| seed.wrapping_add(1 << 32).wrapping_add(k << 40);
         let n = REVERSAL_CHUNK;
         assert_eq!(data[3].0, reversing_bars(n, SIZE, SIZE, own(0)));
-        assert_eq!(data[4].0, steady_bars(n, SIZE, SIZE, false, own(1)));
-        assert_eq!(data[5].0, steady_bars(n, SIZE, SIZE, true, own(2)));
+        assert_eq!(data[4].0, steady_bars(n, SIZE, SIZE, own(1)));
+        assert_eq!(data[5].0, steady_lone_bars(n, SIZE, SIZE, own(2)));
         // Each with the planted sensor's rates.
         assert!(data.iter().all(|(m, r)| r.nrows() == m.shape()[0] && r.ncols() == CELLS));
     }
