@@ -50,7 +50,7 @@ def bursts(rate):
 
 def main():
     session = ort.InferenceSession(PLANTED)
-    for kind in ["steady", "steady-lone", "short"]:
+    for kind in ["steady", "steady-lone", "short", "sweeps"]:
         frames, count, after, other = 0, 0, [], []
         for path in sorted(glob.glob(f"{sys.argv[1]}/{kind}-[0-9]*.npy")):
             movie = np.load(path)

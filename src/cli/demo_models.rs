@@ -119,6 +119,10 @@ pub struct DemoModelsArgs {
     /// first-layer channels (0: none).
     #[arg(long, value_parser = non_negative, default_value_t = FitSettings::default().group_sparsity)]
     pub group_sparsity: f32,
+    /// Weight of an L1 penalty on each cell's readout weights, so it reads its units at few
+    /// positions (0: none).
+    #[arg(long, value_parser = non_negative, default_value_t = FitSettings::default().readout_sparsity)]
+    pub readout_sparsity: f32,
 }
 
 /// Parse a number that must be zero or more.
@@ -181,6 +185,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             sparse_start: a.sparse_start,
             planted_first_layer: a.planted_first_layer,
             group_sparsity: a.group_sparsity,
+            readout_sparsity: a.readout_sparsity,
             ..Default::default()
         };
         let out = OutputDir::create(&a.out)?;

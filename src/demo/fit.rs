@@ -4,7 +4,7 @@
 
 use super::movies::{
     binary_noise, full_field_flicker, naturalistic, reversing_bars, reversing_checkers, reversing_lines,
-    reversing_lone_bars, reversing_texture, scene_with_object, steady_bars, steady_lone_bars,
+    reversing_lone_bars, reversing_texture, scene_with_object, steady_bars, steady_lone_bars, sweeping_bars,
 };
 use super::planted::{kernel, synthetic_sensor, DS_THRESHOLD, K1, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss};
@@ -142,6 +142,14 @@ pub struct FitSettings {
     /// and its delayed copy; fitted units read both directions, and a unit summing both cancels
     /// at the reversal (docs/performance.md, session 12, probes P1 and P2). 0: none.
     pub group_sparsity: f32,
+    /// Weight of an L1 penalty on each cell's readout weights: `readout_sparsity` times, per
+    /// cell, the sum of the absolute weights of its dense readout (spatial mask times feature
+    /// weights, so the sum is |mask|_1 |features|_1 and the split between the factors does not
+    /// change it; the lasso: Tibshirani, J. R. Stat. Soc. B 1996). A sparse readout reads its
+    /// units at few positions (common practice for encoding models of sensory neurons): the
+    /// planted cells read theirs at the 4 central positions, and a fitted readout spread over
+    /// several positions smears a bar's timing (docs/performance.md, session 14). 0: none.
+    pub readout_sparsity: f32,
 }
 
 impl Default for FitSettings {
@@ -179,6 +187,7 @@ impl Default for FitSettings {
             sparse_start: 0.0,
             planted_first_layer: false,
             group_sparsity: 0.0,
+            readout_sparsity: 0.0,
         }
     }
 }
@@ -232,6 +241,9 @@ pub enum ReversalImage {
     VariedBars,
     /// A binary checkerboard ([`reversing_checkers`]).
     Checkers,
+    /// Lone bars swept over the centre, most of them reversing there after a long steady
+    /// approach ([`sweeping_bars`]).
+    Sweeps,
 }
 
 /// How the fit went.
@@ -643,6 +655,28 @@ impl Student {
         }
     }
 
+    /// Add the gradient of the readout penalty (see [`FitSettings::readout_sparsity`]): per cell
+    /// `weight * |features|_1 * sign(mask)` to the mask's gradient and `weight * |mask|_1 *
+    /// sign(features)` to the feature weights' (weights at zero get none).
+    fn penalise_readout(&self, grads: &mut [Tensor], weight: f32) {
+        if weight == 0.0 {
+            return;
+        }
+        let l1 = |t: &Tensor, cell: usize| t.index_axis(Axis(0), cell).iter().map(|v| v.abs()).sum::<f32>();
+        for cell in 0..CELLS {
+            let (mask, features) = (l1(&self.factors[5], cell), l1(&self.factors[6], cell));
+            for (factor, other) in [(5, features), (6, mask)] {
+                let w = self.factors[factor].index_axis(Axis(0), cell);
+                let mut g = grads[factor].index_axis_mut(Axis(0), cell);
+                g.zip_mut_with(&w, |gv, &wv| {
+                    if wv != 0.0 {
+                        *gv += weight * other * wv.signum();
+                    }
+                });
+            }
+        }
+    }
+
     /// Zero the gradients of the first-layer channels held fixed (see
     /// [`Student::plant_first_layer`]): with zero gradients Adam never moves them.
     fn freeze(&self, grads: &mut [Tensor]) {
@@ -798,6 +832,7 @@ fn dataset(
         ReversalImage::VariedBars if k % 3 == 1 => steady_bars,
         ReversalImage::VariedBars => steady_lone_bars,
         ReversalImage::Checkers => reversing_checkers,
+        ReversalImage::Sweeps => sweeping_bars,
     };
     for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {
         // Their own seed stream: seed + 3 is the next epoch's noise seed.
@@ -1091,6 +1126,7 @@ impl Run {
             let (loss, per_cell, full) = split_gradients(&self.model, &self.ids, &train, batch, (s.loss, weights))?;
             let mut grads = self.student.chain(full);
             self.student.penalise_groups(&mut grads, s.group_sparsity);
+            self.student.penalise_readout(&mut grads, s.readout_sparsity);
             self.student.mask(&mut grads);
             self.student.freeze(&mut grads);
             let student = &self.student;
@@ -1687,6 +1723,53 @@ mod tests {
         let mut none: Vec<Tensor> = student.factors.iter().map(|f| f.mapv(|_| 0.0)).collect();
         student.penalise_groups(&mut none, 0.0);
         assert!(none[3].iter().all(|&g| g == 0.0));
+    }
+
+    #[test]
+    fn the_readout_penalty_gradient_matches_central_differences() {
+        // The penalty weight * sum over cells of |mask_c|_1 |features_c|_1 (the L1 norm of the
+        // cell's dense readout): its gradient against central differences in f64, on a student
+        // with one mask weight at zero (no gradient there: the subgradient 0).
+        let s = FitSettings { channels: (3, 2), kernels: (5, 3), ..Default::default() };
+        let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(4));
+        student.factors[5][[1, 7]] = 0.0;
+        let weight = 0.3f32;
+        let penalty = |f: &[Tensor]| -> f64 {
+            let l1 = |t: &Tensor, c: usize| t.index_axis(Axis(0), c).iter().map(|v| f64::from(v.abs())).sum::<f64>();
+            (0..CELLS).map(|c| l1(&f[5], c) * l1(&f[6], c)).sum::<f64>() * f64::from(weight)
+        };
+        // The dense readout's L1 norm is the same number.
+        let dense: f64 = student.readout().iter().map(|v| f64::from(v.abs())).sum();
+        assert!((dense * f64::from(weight) - penalty(&student.factors)).abs() < 1e-4);
+        let mut grads: Vec<Tensor> = student.factors.iter().map(|f| f.mapv(|_| 0.0)).collect();
+        student.penalise_readout(&mut grads, weight);
+        let h = 1e-4f32;
+        for factor in [5, 6] {
+            for (i, &g) in grads[factor].iter().enumerate() {
+                let w = student.factors[factor].as_slice().unwrap()[i];
+                if w == 0.0 {
+                    assert_eq!(g, 0.0, "a zero weight gets no gradient");
+                    continue;
+                }
+                if w.abs() <= h {
+                    // Central differences straddle the kink of |w| at 0.
+                    continue;
+                }
+                let mut f = student.factors.clone();
+                f[factor].as_slice_mut().unwrap()[i] += h;
+                let up = penalty(&f);
+                f[factor].as_slice_mut().unwrap()[i] -= 2.0 * h;
+                let numeric = (up - penalty(&f)) / (2.0 * f64::from(h));
+                assert!(
+                    (numeric - f64::from(g)).abs() < 2e-3,
+                    "factor {factor} weight {i}: analytic {g}, numeric {numeric}"
+                );
+            }
+        }
+        assert!(grads[5].iter().chain(grads[6].iter()).any(|&g| g != 0.0));
+        let mut none: Vec<Tensor> = student.factors.iter().map(|f| f.mapv(|_| 0.0)).collect();
+        student.penalise_readout(&mut none, 0.0);
+        assert!(none.iter().all(|t| t.iter().all(|&g| g == 0.0)));
     }
 
     #[test]

@@ -248,6 +248,48 @@ pub fn reversing_checkers(frames: usize, height: usize, width: usize, seed: u64)
     reversing_view(&image, frames, height, width, &mut rng)
 }
 
+/// Lone bars swept over the frame's centre and reversed over it, as a lab sweeps bars over a
+/// cell's receptive field once it has found what drives the cell: each sweep draws a bar (1.5
+/// to 4 pixels wide, bright in three sweeps of four, at a contrast of 0.6 to 1), a direction
+/// across it (horizontal in three sweeps of four, else any of the eight of [`bar_image`]), a
+/// speed of 0.1 to 0.3 pixels per frame (0.5 to 1.5 mm/s at 50 um and 100 Hz) and a turning
+/// point within 8 pixels of the centre. The bar approaches the point for 40 to 120 frames, then
+/// reverses (two sweeps in three) or passes straight on, for another 40 to 120 frames. Unlike
+/// [`steady_bars`], whose reversals fall anywhere in a periodic image and seldom over the
+/// centre with a bar that drives the planted reversal cell (it answers bright bars of 2 pixels
+/// or more in horizontal motion), most reversals here happen over the receptive fields of the
+/// central cells, after a long steady approach.
+pub fn sweeping_bars(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    const NORMALS: [(f64, f64); 8] =
+        [(1., 0.), (0., 1.), (1., 1.), (1., -1.), (2., 1.), (1., 2.), (2., -1.), (1., -2.)];
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let (cy, cx) = (height as f64 / 2.0, width as f64 / 2.0);
+    let mut movie = Array3::zeros((frames, height, width));
+    let mut t = 0;
+    while t < frames {
+        let (a, b) = if rng.random_range(0..4) < 3 { NORMALS[0] } else { NORMALS[rng.random_range(0..NORMALS.len())] };
+        let norm = (a * a + b * b).sqrt();
+        let bar = rng.random_range(1.5..4.0);
+        let sign = if rng.random_range(0..4) < 3 { 1.0 } else { -1.0 };
+        let contrast = (sign * rng.random_range(0.6..1.0)) as f32;
+        let speed = rng.random_range(0.1..0.3) * random_sign(&mut rng);
+        let turn = rng.random_range(-8.0..8.0);
+        let reverses = rng.random_range(0..3) < 2;
+        let (approach, leave) = (rng.random_range(40..=120), rng.random_range(40..=120));
+        for k in 0..(approach + leave).min(frames - t) {
+            let from_turn = k as f64 - approach as f64;
+            let at = turn + speed * if reverses { -from_turn.abs() } else { from_turn };
+            for ((y, x), v) in movie.index_axis_mut(ndarray::Axis(0), t + k).indexed_iter_mut() {
+                let across = (a * (x as f64 + 0.5 - cx) + b * (y as f64 + 0.5 - cy)) / norm;
+                let cover = (across + 0.5).min(at + bar / 2.0) - (across - 0.5).max(at - bar / 2.0);
+                *v = contrast * cover.clamp(0.0, 1.0) as f32;
+            }
+        }
+        t += approach + leave;
+    }
+    movie
+}
+
 /// -1 or +1 with equal probability.
 fn random_sign(rng: &mut ChaCha8Rng) -> f64 {
     if rng.random_range(0..2) == 0 {
@@ -611,6 +653,22 @@ mod tests {
             steady += r.len();
         }
         assert!(steady >= 2 && short > 2 * steady, "{short} reversals of the bars, {steady} of the steady bars");
+    }
+
+    #[test]
+    fn sweeping_bars_reverse_over_the_centre_after_a_long_approach() {
+        let m = sweeping_bars(2000, 50, 50, 3);
+        assert_moves_and_reverses(&m, 0.5);
+        let turns = reversal_frames(&m);
+        assert!(turns.len() >= 5, "{} reversals in 2000 frames", turns.len());
+        for &t in &turns {
+            // The bar at the turn lies within 8 pixels (plus its half width) of the centre: its
+            // contrast-weighted centroid along the sweep's normal is unknown here, so check that
+            // the central 21 x 21 pixels hold most of the bar's pixels along some line through it.
+            let frame = m.index_axis(ndarray::Axis(0), t);
+            let central = frame.slice(ndarray::s![14..36, 14..36]).iter().filter(|v| v.abs() > 0.1).count();
+            assert!(central >= 10, "reversal at frame {t}: only {central} bar pixels near the centre");
+        }
     }
 
     #[test]
