@@ -307,6 +307,11 @@ struct Student {
 }
 
 impl Student {
+    /// The student's shape and settings with no weights (to be given its factors).
+    fn without_factors(&self) -> Student {
+        Student { factors: Vec::new(), ..*self }
+    }
+
     /// Random factors at the usual 1 / sqrt(fan-in) scale; the readout bias starts where each
     /// cell's output is its mean rate `mean_rates` (common practice: the first steps then shape
     /// the response instead of finding its level).
@@ -1177,11 +1182,10 @@ impl Run {
     /// The student the fit stands at: the tail's mean when averaging has begun, else the
     /// present one.
     fn current(&self) -> Student {
-        let mut student = self.student.clone();
-        if let Some((mean, _)) = &self.average {
-            student.factors = mean.clone();
+        match &self.average {
+            Some((mean, _)) => Student { factors: mean.clone(), ..self.student.without_factors() },
+            None => self.student.clone(),
         }
-        student
     }
 }
 
