@@ -13,6 +13,7 @@ import sys
 
 import numpy as np
 import onnxruntime as ort
+from planted_response_statistics import rates
 
 LAGS, SIZE = 40, 50
 TURN, APPROACH, AFTER = 6.0, 80, 80
@@ -33,9 +34,7 @@ def movie(width, contrast, speed):
 
 
 def cell1(session, frames):
-    x = np.stack([frames[t - LAGS + 1 : t + 1] for t in range(LAGS - 1, frames.shape[0])])
-    name = session.get_inputs()[0].name
-    return np.concatenate([session.run(None, {name: x[i : i + 64]})[0] for i in range(0, len(x), 64)])[:, 1]
+    return rates(session, frames.astype(np.float32))[:, 1]
 
 
 def main():

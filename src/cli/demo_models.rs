@@ -33,7 +33,8 @@ pub struct DemoModelsArgs {
     #[arg(long, value_parser = fraction, default_value_t = FitSettings::default().reversal_from)]
     pub reversal_from: f64,
     /// What the reversing movie moves: a pink texture, thin lines, parallel bars, lone bars,
-    /// both kinds of bars by turns (with short or long steady segments, or both), or a checkerboard.
+    /// both kinds of bars by turns (with short or long steady segments, or both), a checkerboard,
+    /// or lone bars swept over the centre.
     #[arg(long, value_enum, default_value_t = ReversalImage::Pink)]
     pub reversal_image: ReversalImage,
     /// Passes over the training windows.

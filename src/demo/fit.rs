@@ -229,15 +229,13 @@ pub enum ReversalImage {
     /// cell often, the lone bars show it silent under a lone bar's steady motion.
     MixedBars,
     /// As `mixed-bars`, each velocity held 40 to 160 frames instead of 15 to 60 ([`steady_bars`],
-    /// [`steady_lone_bars`]):
-    /// steady motion long enough for the reversal cell to fall silent.
+    /// [`steady_lone_bars`]): steady motion long enough for the reversal cell to fall silent.
     SteadyBars,
     /// Parallel bars in short segments (`bars`), then parallel and lone bars in long ones
     /// (`steady-bars`), by turns: the short segments hold most of the reversals that happen
     /// over the receptive field (`scripts/reversal_events.py` on the planted sensor, two draws:
     /// 21 of 34 bursts in `bars` follow a reversal, 3 of 25 in steady parallel bars), the long
-    /// ones the steady
-    /// motion under which the reversal cell falls silent.
+    /// ones the steady motion under which the reversal cell falls silent.
     VariedBars,
     /// A binary checkerboard ([`reversing_checkers`]).
     Checkers,

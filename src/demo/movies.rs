@@ -260,14 +260,13 @@ pub fn reversing_checkers(frames: usize, height: usize, width: usize, seed: u64)
 /// or more in horizontal motion), most reversals here happen over the receptive fields of the
 /// central cells, after a long steady approach.
 pub fn sweeping_bars(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
-    const NORMALS: [(f64, f64); 8] =
-        [(1., 0.), (0., 1.), (1., 1.), (1., -1.), (2., 1.), (1., 2.), (2., -1.), (1., -2.)];
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let (cy, cx) = (height as f64 / 2.0, width as f64 / 2.0);
     let mut movie = Array3::zeros((frames, height, width));
     let mut t = 0;
     while t < frames {
-        let (a, b) = if rng.random_range(0..4) < 3 { NORMALS[0] } else { NORMALS[rng.random_range(0..NORMALS.len())] };
+        let normal = if rng.random_range(0..4) < 3 { 0 } else { rng.random_range(0..BAR_NORMALS.len()) };
+        let (a, b) = (BAR_NORMALS[normal].0 as f64, BAR_NORMALS[normal].1 as f64);
         let norm = (a * a + b * b).sqrt();
         let bar = rng.random_range(1.5..4.0);
         let sign = if rng.random_range(0..4) < 3 { 1.0 } else { -1.0 };
@@ -290,6 +289,11 @@ pub fn sweeping_bars(frames: usize, height: usize, width: usize, seed: u64) -> A
     movie
 }
 
+/// The eight bar normals `(a, b)` of [`bar_image`] and [`sweeping_bars`] (0, 45, 90, 135
+/// degrees and the four in between at slopes of 1/2 and 2); the first, `(1, 0)`, gives
+/// vertical bars in horizontal motion.
+const BAR_NORMALS: [(i64, i64); 8] = [(1, 0), (0, 1), (1, 1), (1, -1), (2, 1), (1, 2), (2, -1), (1, -2)];
+
 /// -1 or +1 with equal probability.
 fn random_sign(rng: &mut ChaCha8Rng) -> f64 {
     if rng.random_range(0..2) == 0 {
@@ -306,8 +310,7 @@ fn random_sign(rng: &mut ChaCha8Rng) -> f64 {
 /// coordinate is `(a x + b y) mod size`, a bar of width `w` spanning `w * |(a, b)|` of it.
 /// Returns the image and its normal `(a, b)`.
 pub fn bar_image(size: usize, gaps: (f64, f64), rng: &mut ChaCha8Rng) -> (Array2<f32>, (i64, i64)) {
-    const NORMALS: [(i64, i64); 8] = [(1, 0), (0, 1), (1, 1), (1, -1), (2, 1), (1, 2), (2, -1), (1, -2)];
-    let (a, b) = NORMALS[rng.random_range(0..NORMALS.len())];
+    let (a, b) = BAR_NORMALS[rng.random_range(0..BAR_NORMALS.len())];
     let norm = ((a * a + b * b) as f64).sqrt();
     // The across-bar coordinate runs over `size` units; one pixel across the bars is `norm` units.
     let mut profile = vec![0.0f32; size];
@@ -662,9 +665,8 @@ mod tests {
         let turns = reversal_frames(&m);
         assert!(turns.len() >= 5, "{} reversals in 2000 frames", turns.len());
         for &t in &turns {
-            // The bar at the turn lies within 8 pixels (plus its half width) of the centre: its
-            // contrast-weighted centroid along the sweep's normal is unknown here, so check that
-            // the central 21 x 21 pixels hold most of the bar's pixels along some line through it.
+            // The bar turns within 8 pixels of the centre, so it crosses the central 22 x 22
+            // pixels: at least 10 of them show it.
             let frame = m.index_axis(ndarray::Axis(0), t);
             let central = frame.slice(ndarray::s![14..36, 14..36]).iter().filter(|v| v.abs() > 0.1).count();
             assert!(central >= 10, "reversal at frame {t}: only {central} bar pixels near the centre");
