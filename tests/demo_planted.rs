@@ -9,6 +9,7 @@ use cli_support::{json, s, sufficit};
 use demo_support::run;
 use serde_json::Value;
 use sufficit::demo::planted::synthetic_sensor;
+use sufficit::demo::REVERSAL_BAR;
 use sufficit::model::builder::to_bytes;
 use sufficit::model::Model;
 
@@ -71,9 +72,10 @@ fn the_resonant_cell_alone_responds_after_the_omitted_flash() {
 
 #[test]
 fn the_reversal_cell_alone_responds_at_motion_reversal() {
-    // Reversal 300 um right of the centre, so the smooth-motion window finds the bar over the
-    // receptive-field centre: a cell that merely sees the bar is not mistaken for a reversal cell.
-    let (_, _, summary) = run(&model(), "reversing-bar", &["reversal_um=1550"]);
+    // The demo's bar (sufficit::demo::REVERSAL_BAR): the reversal 250 um right of the centre, so
+    // the smooth-motion window finds the bar over the receptive-field centre and a cell that
+    // merely sees the bar is not mistaken for a reversal cell.
+    let (_, _, summary) = run(&model(), "reversing-bar", &REVERSAL_BAR);
     let ratio = |cell: usize| summary["cells"][cell]["reversal_to_smooth_ratio"].as_f64().unwrap();
     assert!(ratio(1) > 5.0, "reversal cell: {}", ratio(1));
     assert!(ratio(0) < 1.5 && ratio(2) < 1.5, "others: {} {}", ratio(0), ratio(2));
@@ -112,9 +114,9 @@ fn set_floats(init: &mut tract_onnx::pb::TensorProto, values: &[f32]) {
     init.raw_data = values.iter().flat_map(|v| v.to_le_bytes()).collect();
 }
 
-/// The reversal cell's reversal / smooth ratio on `m` (reversal 300 um right of the centre).
+/// The reversal cell's reversal / smooth ratio on `m` (the demo's bar).
 fn reversal_ratio(m: &Model) -> f64 {
-    run(m, "reversing-bar", &["reversal_um=1550"]).2["cells"][1]["reversal_to_smooth_ratio"].as_f64().unwrap()
+    run(m, "reversing-bar", &REVERSAL_BAR).2["cells"][1]["reversal_to_smooth_ratio"].as_f64().unwrap()
 }
 
 #[test]
@@ -123,9 +125,9 @@ fn the_reversal_response_needs_sharp_rectification() {
     // circuit with softplus in place of ReLU loses its reversal response, because softplus
     // bends over a unit-wide range and the circuit's thresholds (4 on a drive of about 7, 0.5
     // on a pooled drive of about 2.6) need a sharp one. Only with weights scaled up several
-    // times does the softplus copy come back. Measured: ratio 1.04 at k = 1, 6.2 at k = 4, 9.6
-    // at k = 10, against 10.0 for the planted circuit (1.15, 8.1, 10.0 against 10.4 before the
-    // reversal units had their ceiling).
+    // times does the softplus copy come back. Measured on the demo's bar: ratio 1.19 at k = 1,
+    // 7.9 at k = 4, 11.8 at k = 10, against 12.0 for the planted circuit (on the earlier 1 mm/s
+    // bar 1.04, 6.2, 9.6 against 10.0).
     let ratio = reversal_ratio;
     let (planted, soft, sharp) = (ratio(&model()), ratio(&softplus_copy(1.0)), ratio(&softplus_copy(10.0)));
     eprintln!("reversal / smooth: planted {planted:.2}, softplus copy at k = 1 {soft:.2}, at k = 4 {:.2}, at k = 10 {sharp:.2}", ratio(&softplus_copy(4.0)));
@@ -167,8 +169,8 @@ fn rank_two_kernels_can_carry_the_reversal_response() {
     // planted direction-selective kernels (a spot moving across a Gaussian envelope) are not
     // separable, and with one term the reversal response is gone; with two (a space-time
     // oriented filter as a sum of two separable ones: Adelson & Bergen, J. Opt. Soc. Am. A 1985)
-    // the circuit keeps it within 25 %. Measured: ratio 1.0 at rank 1, 9.2 at rank 2, 9.8 at
-    // rank 3, against 10.0 for the planted circuit.
+    // the circuit keeps it within 25 %. Measured on the demo's bar: ratio 1.0 at rank 1, 11.4 at
+    // rank 2, 11.6 at rank 3, against 12.0 for the planted circuit.
     let ratio = reversal_ratio;
     let (planted, one, two) = (ratio(&model()), ratio(&low_rank_copy(1)), ratio(&low_rank_copy(2)));
     eprintln!(
@@ -227,11 +229,15 @@ fn reduction_recovers_the_planted_pathways_and_their_signs() {
     assert_eq!((kept(&osr, "units"), kept(&osr, "pathways")), (vec![0], vec![2, 3]), "{osr:#}");
     assert_eq!(sign(&osr, "pathways", 2), "excitatory");
     assert_eq!(sign(&osr, "pathways", 3), "inhibitory");
-    // Reversal (the bar reversing leftwards): the leftward pathway (6) through its unit (2),
-    // and that unit's cap (5, read negatively); the delayed copy is silent in the reversal
-    // window.
-    let rev = reduce("reversing-bar", &["reversal_um=1550"], "1");
-    assert_eq!((kept(&rev, "units"), kept(&rev, "pathways")), (vec![2, 5], vec![6]), "{rev:#}");
+    // Reversal (the bar reversing leftwards): the leftward pathway (6, excitatory) minus its
+    // delayed copy (7, inhibitory), through their unit (2) and that unit's cap (5, read
+    // negatively): the whole planted mechanism. At 750 um/s the delayed copy catches up
+    // within the 200 ms reversal window and ends the burst there, so it is needed (with the
+    // earlier 1 mm/s bar it was silent in the window and reduction kept pathway 6 alone).
+    let rev = reduce("reversing-bar", &REVERSAL_BAR, "1");
+    assert_eq!((kept(&rev, "units"), kept(&rev, "pathways")), (vec![2, 5], vec![6, 7]), "{rev:#}");
+    assert_eq!(sign(&rev, "pathways", 6), "excitatory");
+    assert_eq!(sign(&rev, "pathways", 7), "inhibitory");
     assert_eq!(sign(&rev, "units", 2), "excitatory");
     assert_eq!(sign(&rev, "units", 5), "inhibitory");
     for sub in [&oms, &osr, &rev] {

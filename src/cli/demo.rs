@@ -17,9 +17,7 @@ const MODEL: &[u8] = include_bytes!("../../models/synthetic-sensor-planted.onnx"
 /// Each demo cell with its protocol and the protocol's parameters.
 const CELLS: [(usize, &str, &[&str]); 3] = [
     (0, "omitted-flash", &[]),
-    // Reversal 300 um right of the centre: the smooth-motion window then finds the bar over the
-    // receptive-field centre (see docs/models.md).
-    (1, "reversing-bar", &["reversal_um=1550"]),
+    (1, "reversing-bar", &crate::demo::REVERSAL_BAR),
     (2, "differential-motion", &["trial_ms=1500", "trials=1"]),
 ];
 

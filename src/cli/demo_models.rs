@@ -72,7 +72,9 @@ pub struct DemoModelsArgs {
     /// The hidden layers' nonlinearity.
     #[arg(long, value_enum, default_value_t = Hidden::Softplus)]
     pub hidden: Hidden,
-    /// After --epochs, train this cell's own channels alone (needs --separate-cells).
+    /// Give this cell its own recipe (needs --separate-cells): it sits out the --epochs, then
+    /// its channels train afresh and alone for --finish-epochs, with the reversing movie
+    /// throughout.
     #[arg(long, value_name = "CELL")]
     pub finish_cell: Option<usize>,
     /// Epochs of the --finish-cell phase.
@@ -84,6 +86,12 @@ pub struct DemoModelsArgs {
     /// Adam step size of the --finish-cell phase (default: --lr).
     #[arg(long)]
     pub finish_lr: Option<f32>,
+    /// Objective of the --finish-cell phase (default: --loss).
+    #[arg(long, value_enum)]
+    pub finish_loss: Option<crate::demo::train::Loss>,
+    /// --sparse-start of the --finish-cell phase's fresh channels (default: --sparse-start).
+    #[arg(long)]
+    pub finish_sparse_start: Option<f64>,
     /// Clip each batch's gradient at this many running means of recent gradient norms (0: no
     /// clipping).
     #[arg(long, default_value_t = FitSettings::default().clip)]
@@ -176,6 +184,8 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             finish_epochs: a.finish_epochs,
             finish_train_frames: a.finish_train_frames,
             finish_lr: a.finish_lr,
+            finish_loss: a.finish_loss,
+            finish_sparse_start: a.finish_sparse_start,
             clip: a.clip,
             movies_every: a.movies_every.max(1),
             stratify: a.stratify,

@@ -7,7 +7,7 @@ use super::movies::{
     reversing_lone_bars, reversing_texture, scene_with_object, steady_bars, steady_lone_bars, sweeping_bars,
 };
 use super::planted::{kernel, synthetic_sensor, DS_THRESHOLD, K1, LAGS, SIZE};
-use super::train::{batch_gradients, Adam, Loss};
+use super::train::{batch_gradients, Adam, Loss, LOG_OFFSET};
 use crate::model::builder::{int_attr, OnnxBuilder};
 use crate::model::{LoadOptions, Model};
 use crate::response::measure::correlation;
@@ -75,9 +75,11 @@ pub struct FitSettings {
     pub only_cell: Option<usize>,
     /// The hidden layers' nonlinearity.
     pub hidden: Hidden,
-    /// After `epochs`, train this cell's channels alone for `finish_epochs` more (needs
-    /// `separate_cells`): a cell that learns slower than the others gets the time without
-    /// paying for the others' channels.
+    /// Give this cell its own recipe (needs `separate_cells`): it sits out the joint `epochs`
+    /// (loss weight 0), then its channels start afresh and train alone for `finish_epochs`
+    /// more, with the reversing movie from the start and the finishing phase's own frames, step
+    /// size and loss. A sparse cell then trains as it does alone (`only_cell`), and the others
+    /// do not pay for its movies.
     pub finish_cell: Option<usize>,
     /// Epochs of the finishing phase (see `finish_cell`), with their own step decay.
     pub finish_epochs: usize,
@@ -87,6 +89,11 @@ pub struct FitSettings {
     /// Adam step size of the finishing phase (`None`: `lr`): a sparse cell learnt alone fares
     /// better with smaller steps (docs/performance.md, session 10, run E2).
     pub finish_lr: Option<f32>,
+    /// Objective of the finishing phase (`None`: `loss`).
+    pub finish_loss: Option<Loss>,
+    /// `sparse_start` of the finishing phase's fresh channels (`None`: `sparse_start`): a sparse
+    /// cell starts best with channels active on few windows, the resonant cell does not.
+    pub finish_sparse_start: Option<f64>,
     /// Gradient clipping bound, in running means of recent gradient norms (see [`Clip`]); 0
     /// turns clipping off.
     pub clip: f64,
@@ -178,6 +185,8 @@ impl Default for FitSettings {
             finish_epochs: 0,
             finish_train_frames: 500,
             finish_lr: None,
+            finish_loss: None,
+            finish_sparse_start: None,
             clip: 3.0,
             movies_every: 1,
             stratify: false,
@@ -854,7 +863,8 @@ fn dataset(
 /// Each cell's loss weight from a large calibration sample (fixed for the whole fit, so a bursty
 /// cell's weight does not swing with each epoch's movies): 1 / its variance for squared error,
 /// 1 / its mean rate for the Poisson deviance (which grows with the rate), 1 / the variance of
-/// its square-root rate for the squared error of square roots. Either way every cell counts
+/// its square-root rate for the squared error of square roots, 1 / the variance of its log rate
+/// for the squared error of logs. Either way every cell counts
 /// about equally, whatever its firing rate.
 fn cell_weights(loss: Loss, data: &[(Array3<f32>, Array2<f32>)]) -> Vec<f32> {
     (0..CELLS)
@@ -863,6 +873,7 @@ fn cell_weights(loss: Loss, data: &[(Array3<f32>, Array2<f32>)]) -> Vec<f32> {
                 Loss::WeightedMse => moments(cell_rates(data, c)).1,
                 Loss::Poisson => moments(cell_rates(data, c)).0,
                 Loss::RootMse => moments(cell_rates(data, c).map(|v| v.max(0.0).sqrt())).1,
+                Loss::LogMse => moments(cell_rates(data, c).map(|v| (v.max(0.0) as f64 + LOG_OFFSET).ln() as f32)).1,
             };
             (1.0 / scale.max(1e-6)) as f32
         })
@@ -1256,7 +1267,8 @@ fn choose(r: &[Vec<f64>], separate: bool, only: Option<usize>) -> Vec<usize> {
 
 /// The settings of the finishing phase of `s` (see [`FitSettings::finish_cell`]) for cell
 /// `cell`, whose part of the student has `channels`: its epochs numbered after the main ones,
-/// its own training frames and step size, and the step decay within the phase.
+/// its own training frames, step size, loss and sparse start, the reversing movie throughout, and the step
+/// decay within the phase.
 fn finishing(s: &FitSettings, cell: usize, channels: (usize, usize)) -> FitSettings {
     let total = s.epochs + s.finish_epochs;
     FitSettings {
@@ -1265,6 +1277,8 @@ fn finishing(s: &FitSettings, cell: usize, channels: (usize, usize)) -> FitSetti
         only_cell: Some(cell),
         train_frames: s.finish_train_frames,
         lr: s.finish_lr.unwrap_or(s.lr),
+        loss: s.finish_loss.unwrap_or(s.loss),
+        sparse_start: s.finish_sparse_start.unwrap_or(s.sparse_start),
         epochs: total,
         decay_after: (s.epochs as f64 + s.decay_after * s.finish_epochs as f64) / total.max(1) as f64,
         reversal_from: 0.0,
@@ -1315,6 +1329,9 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
     let mut weights = cell_weights(s.loss, &calibration);
     if let Some(k) = s.only_cell {
         weights.iter_mut().enumerate().filter(|&(c, _)| c != k).for_each(|(_, w)| *w = 0.0);
+    }
+    if let Some(k) = s.finish_cell {
+        weights[k] = 0.0;
     }
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
     let mut report = |run: &Run, restart: Option<usize>, epoch: usize, (loss, cells): (f64, Vec<f64>)| {
@@ -1372,16 +1389,19 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         heldout_correlation = report(&run, None, epoch, losses)?;
     }
     if let Some(cell) = s.finish_cell {
-        // The finishing phase: the cell's channels alone, on fresh movies numbered after the
-        // main epochs', with the same step decay within the phase.
+        // The finishing phase: the cell's channels afresh and alone, on fresh movies numbered
+        // after the main epochs', with the same step decay within the phase.
         run.student = run.current();
         run.average = None;
         let part = run.student.cell_part(cell)?;
         let total = s.epochs + s.finish_epochs;
         let f = finishing(s, cell, (part.factors[1].shape()[0], part.factors[3].shape()[0]));
-        let only: Vec<f32> = weights.iter().enumerate().map(|(c, &w)| if c == cell { w } else { 0.0 }).collect();
-        let rng = std::mem::replace(&mut run.rng, ChaCha8Rng::seed_from_u64(0));
-        let mut finish = Run::resume(&f, part, rng, s.seed)?;
+        let only: Vec<f32> = cell_weights(f.loss, &calibration)
+            .iter()
+            .enumerate()
+            .map(|(c, &w)| if c == cell { w } else { 0.0 })
+            .collect();
+        let mut finish = Run::start(&f, s.seed, &calibration)?;
         for epoch in s.epochs..total {
             let losses = finish.epoch(&f, &teacher, epoch, &only)?;
             run.student.put_cell(cell, &finish.current());
@@ -1574,6 +1594,9 @@ mod tests {
         assert_eq!((f.epochs, f.lr), (30, s.lr));
         // The step drops halfway through the phase: after epoch 25 of 30.
         assert!((f.decay_after * 30.0 - 25.0).abs() < 1e-9);
+        assert_eq!((f.loss, f.sparse_start, f.reversal_from), (s.loss, s.sparse_start, 0.0));
+        let own = FitSettings { finish_loss: Some(Loss::LogMse), finish_sparse_start: Some(1.0), ..s.clone() };
+        assert_eq!((finishing(&own, 1, (6, 3)).loss, finishing(&own, 1, (6, 3)).sparse_start), (Loss::LogMse, 1.0));
         assert_eq!(finishing(&FitSettings { finish_lr: Some(3e-4), ..s }, 1, (6, 3)).lr, 3e-4);
     }
 

@@ -124,6 +124,12 @@ pub enum Loss {
     /// for the exact (noise-free) targets of a teacher model every loss has the same minimum,
     /// and this one reaches it without rare bursts dominating the gradient.
     RootMse,
+    /// Squared error of log rates `(ln(o + e) - ln(y + e))^2` with `e` = [`LOG_OFFSET`], each
+    /// cell weighted (by 1 / the variance of its log rate). Relative errors count alike at every
+    /// rate, so a resting rate 40 % too high (0.43 for 0.31) costs as much as a burst 40 % too
+    /// low: the quotient metrics of the protocols (reversal / smooth) are quotients of a burst
+    /// and a floor.
+    LogMse,
 }
 
 impl Loss {
@@ -133,6 +139,7 @@ impl Loss {
             Loss::WeightedMse => squared_error,
             Loss::Poisson => poisson_term,
             Loss::RootMse => root_squared_error,
+            Loss::LogMse => log_squared_error,
         }
     }
 
@@ -169,6 +176,18 @@ fn poisson_term(o: f64, y: f64) -> (f64, f64) {
 fn root_squared_error(o: f64, y: f64) -> (f64, f64) {
     let (ro, ry) = (o.max(RATE_FLOOR).sqrt(), y.max(0.0).sqrt());
     ((ro - ry).powi(2), (ro - ry) / ro)
+}
+
+/// Offset added to rates before the logarithm of [`Loss::LogMse`]: well below the demo cells'
+/// resting rates (0.31 and up), so the floor is resolved, and large enough that rates near zero
+/// do not dominate.
+pub const LOG_OFFSET: f64 = 0.05;
+
+/// One entry's squared error of log rates `(ln(o + e) - ln(y + e))^2` and its derivative in `o`.
+fn log_squared_error(o: f64, y: f64) -> (f64, f64) {
+    let (lo, ly) = ((o.max(0.0) + LOG_OFFSET).ln(), (y.max(0.0) + LOG_OFFSET).ln());
+    let d = if o < 0.0 { 0.0 } else { 2.0 * (lo - ly) / (o + LOG_OFFSET) };
+    ((lo - ly).powi(2), d)
 }
 
 /// Half the Poisson deviance of rates `out` for target rates `target` `[N, cells]`, each cell's
@@ -267,29 +286,47 @@ mod tests {
         }
     }
 
-    #[test]
-    fn root_squared_error_gradient_matches_finite_differences() {
+    /// Check `loss`'s gradient against central finite differences (relative tolerance `tol`)
+    /// on a small batch with a burst, a zero and a low rate, and its value at the target
+    /// (below `at_target`); returns the target for further checks.
+    fn check_gradient(loss: Loss, tol: f64, at_target: f64) -> Array2<f32> {
         let out = Tensor::from_shape_vec(IxDyn(&[2, 2]), vec![0.5, 2.0, 3.0, 0.1]).unwrap();
         let y = Array2::from_shape_vec((2, 2), vec![1.0, 0.0, 30.0, 0.3]).unwrap();
         let w = [0.5, 2.0];
-        let (_, g) = Loss::RootMse.value_and_gradient(&out, &y, &w).unwrap();
+        let (_, g) = loss.value_and_gradient(&out, &y, &w).unwrap();
         let h = 1e-3f32;
         for i in 0..out.len() {
             let (mut plus, mut minus) = (out.clone(), out.clone());
             plus.as_slice_mut().unwrap()[i] += h;
             minus.as_slice_mut().unwrap()[i] -= h;
-            let value = |o: &Tensor| Loss::RootMse.value_and_gradient(o, &y, &w).unwrap().0;
+            let value = |o: &Tensor| loss.value_and_gradient(o, &y, &w).unwrap().0;
             let fd = (value(&plus) - value(&minus)) / (2.0 * h as f64);
             let an = g.as_slice().unwrap()[i] as f64;
-            assert!((fd - an).abs() < 1e-4 * (1.0 + an.abs()), "entry {i}: fd {fd} analytic {an}");
+            assert!((fd - an).abs() < tol * (1.0 + an.abs()), "{loss:?} entry {i}: fd {fd} analytic {an}");
         }
-        // Zero at the target (up to the rate floor). A missed burst (30 predicted as 0.3) pulls
-        // on the log-rate (derivative times rate) by o - sqrt(o y) = -2.7, eleven times less
-        // than under the Poisson deviance, whose pull is o - y = -29.7.
-        assert!(Loss::RootMse.value_and_gradient(&y.clone().into_dyn(), &y, &w).unwrap().0.abs() < 1e-5);
+        assert!(loss.value_and_gradient(&y.clone().into_dyn(), &y, &w).unwrap().0.abs() < at_target);
+        y
+    }
+
+    #[test]
+    fn root_squared_error_gradient_matches_finite_differences() {
+        // Zero at the target (up to the rate floor).
+        check_gradient(Loss::RootMse, 1e-4, 1e-5);
+        // A missed burst (30 predicted as 0.3) pulls on the log-rate (derivative times rate) by
+        // o - sqrt(o y) = -2.7, eleven times less than under the Poisson deviance, whose pull is
+        // o - y = -29.7.
         let root_pull = root_squared_error(0.3, 30.0).1 * 0.3;
         let poisson_pull = poisson_term(0.3, 30.0).1 * 0.3;
         assert!((root_pull + 2.7).abs() < 1e-9 && (poisson_pull + 29.7).abs() < 1e-9, "{poisson_pull} vs {root_pull}");
+    }
+
+    #[test]
+    fn log_squared_error_gradient_matches_finite_differences() {
+        check_gradient(Loss::LogMse, 1e-3, 1e-9);
+        // Relative errors cost alike: a floor 40 % high and a burst 40 % high, the same loss.
+        let floor = log_squared_error(0.31 * 1.4 + 0.4 * LOG_OFFSET, 0.31).0;
+        let burst = log_squared_error(2.44 * 1.4 + 0.4 * LOG_OFFSET, 2.44).0;
+        assert!((floor - burst).abs() < 1e-9, "{floor} vs {burst}");
     }
 
     #[test]
