@@ -92,6 +92,9 @@ pub struct DemoModelsArgs {
     /// --sparse-start of the --finish-cell phase's fresh channels (default: --sparse-start).
     #[arg(long)]
     pub finish_sparse_start: Option<f64>,
+    /// Reversing movie of the --finish-cell phase (default: --reversal-image).
+    #[arg(long, value_enum)]
+    pub finish_reversal_image: Option<ReversalImage>,
     /// Clip each batch's gradient at this many running means of recent gradient norms (0: no
     /// clipping).
     #[arg(long, default_value_t = FitSettings::default().clip)]
@@ -186,6 +189,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             finish_lr: a.finish_lr,
             finish_loss: a.finish_loss,
             finish_sparse_start: a.finish_sparse_start,
+            finish_reversal_image: a.finish_reversal_image,
             clip: a.clip,
             movies_every: a.movies_every.max(1),
             stratify: a.stratify,

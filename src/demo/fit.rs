@@ -94,6 +94,9 @@ pub struct FitSettings {
     /// `sparse_start` of the finishing phase's fresh channels (`None`: `sparse_start`): a sparse
     /// cell starts best with channels active on few windows, the resonant cell does not.
     pub finish_sparse_start: Option<f64>,
+    /// Reversing movie of the finishing phase (`None`: `reversal_image`), so the joint epochs
+    /// can show the other cells one kind of moving bars and the finishing cell another.
+    pub finish_reversal_image: Option<ReversalImage>,
     /// Gradient clipping bound, in running means of recent gradient norms (see [`Clip`]); 0
     /// turns clipping off.
     pub clip: f64,
@@ -187,6 +190,7 @@ impl Default for FitSettings {
             finish_lr: None,
             finish_loss: None,
             finish_sparse_start: None,
+            finish_reversal_image: None,
             clip: 3.0,
             movies_every: 1,
             stratify: false,
@@ -1267,7 +1271,7 @@ fn choose(r: &[Vec<f64>], separate: bool, only: Option<usize>) -> Vec<usize> {
 
 /// The settings of the finishing phase of `s` (see [`FitSettings::finish_cell`]) for cell
 /// `cell`, whose part of the student has `channels`: its epochs numbered after the main ones,
-/// its own training frames, step size, loss and sparse start, the reversing movie throughout, and the step
+/// its own training frames, step size, loss, sparse start and reversing movie (throughout), and the step
 /// decay within the phase.
 fn finishing(s: &FitSettings, cell: usize, channels: (usize, usize)) -> FitSettings {
     let total = s.epochs + s.finish_epochs;
@@ -1279,6 +1283,7 @@ fn finishing(s: &FitSettings, cell: usize, channels: (usize, usize)) -> FitSetti
         lr: s.finish_lr.unwrap_or(s.lr),
         loss: s.finish_loss.unwrap_or(s.loss),
         sparse_start: s.finish_sparse_start.unwrap_or(s.sparse_start),
+        reversal_image: s.finish_reversal_image.unwrap_or(s.reversal_image),
         epochs: total,
         decay_after: (s.epochs as f64 + s.decay_after * s.finish_epochs as f64) / total.max(1) as f64,
         reversal_from: 0.0,
@@ -1595,8 +1600,14 @@ mod tests {
         // The step drops halfway through the phase: after epoch 25 of 30.
         assert!((f.decay_after * 30.0 - 25.0).abs() < 1e-9);
         assert_eq!((f.loss, f.sparse_start, f.reversal_from), (s.loss, s.sparse_start, 0.0));
-        let own = FitSettings { finish_loss: Some(Loss::LogMse), finish_sparse_start: Some(1.0), ..s.clone() };
-        assert_eq!((finishing(&own, 1, (6, 3)).loss, finishing(&own, 1, (6, 3)).sparse_start), (Loss::LogMse, 1.0));
+        let own = FitSettings {
+            finish_loss: Some(Loss::LogMse),
+            finish_sparse_start: Some(1.0),
+            finish_reversal_image: Some(ReversalImage::Sweeps),
+            ..s.clone()
+        };
+        let g = finishing(&own, 1, (6, 3));
+        assert_eq!((g.loss, g.sparse_start, g.reversal_image), (Loss::LogMse, 1.0, ReversalImage::Sweeps));
         assert_eq!(finishing(&FitSettings { finish_lr: Some(3e-4), ..s }, 1, (6, 3)).lr, 3e-4);
     }
 
