@@ -26,8 +26,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
         )?;
         let fitted = Model::load(Path::new(&fitted), &LoadOptions::default())?;
         for (cell, c) in fresh_correlations(&planted, &fitted)?.iter().enumerate() {
-            let each: Vec<String> = c.by_movie.iter().map(|(name, r)| format!("{name} {r:.2}")).collect();
-            println!("cell {cell}: pooled r {:.3} ({})", c.pooled, each.join(", "));
+            println!("cell {cell}: pooled r {:.3} ({})", c.pooled, c.by_movie_line());
         }
     }
     Ok(())

@@ -25,11 +25,10 @@ fn the_fitted_model_predicts_fresh_movies_with_r_of_at_least_0_8_per_cell() {
     let found = fresh_correlations(&load(PLANTED_FILE), &load(FITTED_FILE)).unwrap();
     let mut short = Vec::new();
     for (cell, c) in found.iter().enumerate() {
-        let each: Vec<String> = c.by_movie.iter().map(|(name, r)| format!("{name} {r:.2}")).collect();
-        eprintln!("cell {cell}: pooled r {:.3} ({})", c.pooled, each.join(", "));
+        eprintln!("cell {cell}: pooled r {:.3} ({})", c.pooled, c.by_movie_line());
         // Every cell is measured and printed before the verdict.
         if c.pooled.is_nan() || c.pooled < 0.8 {
-            short.push(format!("cell {cell}: held-out r {:.3} < 0.8 ({})", c.pooled, each.join(", ")));
+            short.push(format!("cell {cell}: held-out r {:.3} < 0.8 ({})", c.pooled, c.by_movie_line()));
         }
     }
     assert!(short.is_empty(), "{}", short.join("; "));

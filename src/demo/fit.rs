@@ -78,7 +78,7 @@ pub struct FitSettings {
     /// Give this cell its own recipe (needs `separate_cells`): it sits out the joint `epochs`
     /// (loss weight 0), then its channels start afresh and train alone for `finish_epochs`
     /// more, with the reversing movie from the start and the finishing phase's own frames, step
-    /// size and loss. A sparse cell then trains as it does alone (`only_cell`), and the others
+    /// size, loss, sparse start and reversing movie. A sparse cell then trains as it does alone (`only_cell`), and the others
     /// do not pay for its movies.
     pub finish_cell: Option<usize>,
     /// Epochs of the finishing phase (see `finish_cell`), with their own step decay.
@@ -868,8 +868,8 @@ fn dataset(
 /// cell's weight does not swing with each epoch's movies): 1 / its variance for squared error,
 /// 1 / its mean rate for the Poisson deviance (which grows with the rate), 1 / the variance of
 /// its square-root rate for the squared error of square roots, 1 / the variance of its log rate
-/// for the squared error of logs. Either way every cell counts
-/// about equally, whatever its firing rate.
+/// for the squared error of logs. Either way every cell counts about equally, whatever its
+/// firing rate.
 fn cell_weights(loss: Loss, data: &[(Array3<f32>, Array2<f32>)]) -> Vec<f32> {
     (0..CELLS)
         .map(|c| {
@@ -1271,8 +1271,8 @@ fn choose(r: &[Vec<f64>], separate: bool, only: Option<usize>) -> Vec<usize> {
 
 /// The settings of the finishing phase of `s` (see [`FitSettings::finish_cell`]) for cell
 /// `cell`, whose part of the student has `channels`: its epochs numbered after the main ones,
-/// its own training frames, step size, loss, sparse start and reversing movie (throughout), and the step
-/// decay within the phase.
+/// its own training frames, step size, loss, sparse start and reversing movie (throughout),
+/// and the step decay within the phase.
 fn finishing(s: &FitSettings, cell: usize, channels: (usize, usize)) -> FitSettings {
     let total = s.epochs + s.finish_epochs;
     FitSettings {

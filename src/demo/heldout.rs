@@ -37,6 +37,14 @@ pub struct FreshCorrelation {
     pub by_movie: Vec<(&'static str, f64)>,
 }
 
+impl FreshCorrelation {
+    /// The per-movie values as one line, e.g. `binary noise 0.92, flicker NaN, ...`.
+    pub fn by_movie_line(&self) -> String {
+        let each: Vec<String> = self.by_movie.iter().map(|(name, r)| format!("{name} {r:.2}")).collect();
+        each.join(", ")
+    }
+}
+
 /// Each demo cell's [`FreshCorrelation`] of `fitted` against `planted`.
 pub fn fresh_correlations(planted: &Model, fitted: &Model) -> Result<Vec<FreshCorrelation>> {
     let movies = fresh_movies();
