@@ -1,7 +1,7 @@
 //! `sufficit demo-models --out models/ [--fit]` (hidden, for maintainers): write the planted
 //! demo model and, with `--fit`, train the fitted demo model on it.
 
-use crate::demo::fit::{fit, FitSettings, Hidden, ReversalImage};
+use crate::demo::fit::{fit, FitSettings, Hidden, ObjectMotion, ReversalImage};
 use crate::output::OutputDir;
 use crate::Result;
 use clap::Args;
@@ -25,6 +25,10 @@ pub struct DemoModelsArgs {
     /// Frames of naturalistic movie with a moving object per epoch.
     #[arg(long, default_value_t = FitSettings::default().object_frames)]
     pub object_frames: usize,
+    /// How the object movie moves: scene and object drifting smoothly, the scene jittering with
+    /// objects that jitter with it or on their own, or half of each.
+    #[arg(long, value_enum, default_value_t = ObjectMotion::Drift)]
+    pub object_motion: ObjectMotion,
     /// Frames of reversing movie (see --reversal-image) per epoch.
     #[arg(long, default_value_t = FitSettings::default().reversal_frames)]
     pub reversal_frames: usize,
@@ -34,7 +38,7 @@ pub struct DemoModelsArgs {
     pub reversal_from: f64,
     /// What the reversing movie moves: a pink texture, thin lines, parallel bars, lone bars,
     /// both kinds of bars by turns (with short or long steady segments, or both), a checkerboard,
-    /// or lone bars swept over the centre.
+    /// lone bars swept over the centre, or those sweeps and parallel bars by turns.
     #[arg(long, value_enum, default_value_t = ReversalImage::Pink)]
     pub reversal_image: ReversalImage,
     /// Passes over the training windows.
@@ -170,6 +174,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             seed: a.seed,
             train_frames: a.train_frames,
             object_frames: a.object_frames,
+            object_motion: a.object_motion,
             reversal_frames: a.reversal_frames,
             reversal_from: a.reversal_from,
             reversal_image: a.reversal_image,

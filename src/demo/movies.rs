@@ -130,6 +130,64 @@ pub fn scene_with_object(frames: usize, height: usize, width: usize, seed: u64) 
     movie
 }
 
+/// A pink scene under fixational jitter with objects that either move with it or jitter on their
+/// own `[frames, height, width]`. The scene (as [`naturalistic`]'s image) steps every frame
+/// with probability 0.3, by 0.5 to 1.5 pixels in a random direction (small eye movements). In
+/// segments of 60 to 150 frames a disk (radius 4 to 10 pixels, cut from a second pink image,
+/// within 12 pixels of the frame centre) either moves with the scene (an object still in the
+/// world, so the whole image shifts together) or takes steps of its own with the same
+/// statistics (an object moving against its background). Drifting scenes move smoothly and
+/// mostly at coarse scales; here the centre and surround of a receptive field see the same fine
+/// steps together or apart, the contrast an object-motion-sensitive cell is built on.
+pub fn jittering_scene_with_object(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let size = 4 * height.max(width).next_power_of_two();
+    let (scene, texture) = (pink_image(size, 0.35, &mut rng), pink_image(size, 0.35, &mut rng));
+    let (cy, cx, reach) = (height as f64 / 2.0, width as f64 / 2.0, 12.0);
+    let step = |rng: &mut ChaCha8Rng| -> (f64, f64) {
+        if rng.random_range(0.0..1.0) < 0.3 {
+            let (length, angle): (f64, f64) =
+                (rng.random_range(0.5..1.5), rng.random_range(0.0..std::f64::consts::TAU));
+            (length * angle.sin(), length * angle.cos())
+        } else {
+            (0.0, 0.0)
+        }
+    };
+    let mut at = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
+    let mut movie = Array3::zeros((frames, height, width));
+    let mut view = Array2::zeros((height, width));
+    let mut t = 0;
+    while t < frames {
+        let end = (t + rng.random_range(60..=150)).min(frames);
+        let own = rng.random_bool(0.5);
+        let radius: f64 = rng.random_range(4.0..10.0);
+        let (mut y, mut x) = (cy + rng.random_range(-reach..reach), cx + rng.random_range(-reach..reach));
+        let offset = (rng.random_range(0.0..size as f64), rng.random_range(0.0..size as f64));
+        for frame_index in t..end {
+            let (dy, dx) = step(&mut rng);
+            at = ((at.0 + dy).rem_euclid(size as f64), (at.1 + dx).rem_euclid(size as f64));
+            // The scene's content moves by minus its view's step; a disk still in the world with it.
+            let (oy, ox) = if own { step(&mut rng) } else { (-dy, -dx) };
+            y = reflect(y + oy, 0.0, cy, reach).0;
+            x = reflect(x + ox, 0.0, cx, reach).0;
+            let mut frame = movie.index_axis_mut(ndarray::Axis(0), frame_index);
+            render(&scene, at, frame.view_mut());
+            render(
+                &texture,
+                ((offset.0 - y).rem_euclid(size as f64), (offset.1 - x).rem_euclid(size as f64)),
+                view.view_mut(),
+            );
+            for ((r, c), v) in frame.indexed_iter_mut() {
+                if (r as f64 + 0.5 - y).powi(2) + (c as f64 + 0.5 - x).powi(2) < radius * radius {
+                    *v = view[[r, c]];
+                }
+            }
+        }
+        t = end;
+    }
+    movie
+}
+
 /// Position and velocity after reflecting `p` back into `centre +- reach`.
 fn reflect(p: f64, v: f64, centre: f64, reach: f64) -> (f64, f64) {
     if (p - centre).abs() > reach {
@@ -499,6 +557,25 @@ mod tests {
         let travel =
             centres.windows(2).map(|w| ((w[1].0 - w[0].0).powi(2) + (w[1].1 - w[0].1).powi(2)).sqrt()).sum::<f64>();
         assert!(travel > 10.0, "travel {travel}");
+    }
+
+    #[test]
+    fn a_jittering_scene_steps_as_often_as_set_and_its_objects_sometimes_move_on_their_own() {
+        let m = jittering_scene_with_object(1200, 50, 50, 4);
+        assert_eq!(m, jittering_scene_with_object(1200, 50, 50, 4));
+        assert!(m.iter().all(|v| (-1.0..=1.0).contains(v)));
+        let changed = |t: usize, (r0, r1): (usize, usize), (c0, c1): (usize, usize)| {
+            let (a, b) = (m.index_axis(ndarray::Axis(0), t), m.index_axis(ndarray::Axis(0), t + 1));
+            (r0..r1).any(|r| (c0..c1).any(|c| a[[r, c]] != b[[r, c]]))
+        };
+        // The corner lies beyond any disk (centre within 12 px of the frame's, radius < 10).
+        let corner: Vec<bool> = (0..m.shape()[0] - 1).map(|t| changed(t, (0, 3), (0, 3))).collect();
+        let steps = corner.iter().filter(|&&c| c).count() as f64 / corner.len() as f64;
+        assert!((0.25..0.35).contains(&steps), "scene steps in {steps} of frames, set 0.3");
+        // With the scene still, the central pixels change only when an object moves on its own
+        // (expected in about 0.5 x 0.3 x 0.7 of frames, times how often a disk covers them).
+        let own = (0..corner.len()).filter(|&t| !corner[t] && changed(t, (24, 26), (24, 26))).count();
+        assert!(own as f64 > 0.02 * corner.len() as f64, "objects moved on their own in {own} frames");
     }
 
     #[test]
