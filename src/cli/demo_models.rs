@@ -99,6 +99,12 @@ pub struct DemoModelsArgs {
     /// Reversing movie of the --finish-cell phase (default: --reversal-image).
     #[arg(long, value_enum)]
     pub finish_reversal_image: Option<ReversalImage>,
+    /// Revive dead channels in the --finish-cell phase only (--revive: in every phase).
+    #[arg(long)]
+    pub finish_revive: bool,
+    /// Average the --finish-cell phase's tail only (--average: in every phase).
+    #[arg(long)]
+    pub finish_average: bool,
     /// Clip each batch's gradient at this many running means of recent gradient norms (0: no
     /// clipping).
     #[arg(long, default_value_t = FitSettings::default().clip)]
@@ -195,6 +201,8 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             finish_loss: a.finish_loss,
             finish_sparse_start: a.finish_sparse_start,
             finish_reversal_image: a.finish_reversal_image,
+            finish_revive: a.finish_revive,
+            finish_average: a.finish_average,
             clip: a.clip,
             movies_every: a.movies_every.max(1),
             stratify: a.stratify,

@@ -100,6 +100,10 @@ pub struct FitSettings {
     /// Reversing movie of the finishing phase (`None`: `reversal_image`), so the joint epochs
     /// can show the other cells one kind of moving bars and the finishing cell another.
     pub finish_reversal_image: Option<ReversalImage>,
+    /// Revive dead channels in the finishing phase only (`revive` does it in every phase).
+    pub finish_revive: bool,
+    /// Average the finishing phase's tail only (`average` does it in every phase).
+    pub finish_average: bool,
     /// Gradient clipping bound, in running means of recent gradient norms (see [`Clip`]); 0
     /// turns clipping off.
     pub clip: f64,
@@ -195,6 +199,8 @@ impl Default for FitSettings {
             finish_loss: None,
             finish_sparse_start: None,
             finish_reversal_image: None,
+            finish_revive: false,
+            finish_average: false,
             clip: 3.0,
             movies_every: 1,
             stratify: false,
@@ -1297,6 +1303,8 @@ fn finishing(s: &FitSettings, cell: usize, channels: (usize, usize)) -> FitSetti
         loss: s.finish_loss.unwrap_or(s.loss),
         sparse_start: s.finish_sparse_start.unwrap_or(s.sparse_start),
         reversal_image: s.finish_reversal_image.unwrap_or(s.reversal_image),
+        revive: s.revive || s.finish_revive,
+        average: s.average || s.finish_average,
         epochs: total,
         decay_after: (s.epochs as f64 + s.decay_after * s.finish_epochs as f64) / total.max(1) as f64,
         reversal_from: 0.0,
@@ -1618,14 +1626,21 @@ mod tests {
         // The step drops halfway through the phase: after epoch 25 of 30.
         assert!((f.decay_after * 30.0 - 25.0).abs() < 1e-9);
         assert_eq!((f.loss, f.sparse_start, f.reversal_from), (s.loss, s.sparse_start, 0.0));
+        assert_eq!((f.revive, f.average), (false, false));
         let own = FitSettings {
             finish_loss: Some(Loss::LogMse),
             finish_sparse_start: Some(1.0),
             finish_reversal_image: Some(ReversalImage::Sweeps),
+            finish_revive: true,
+            finish_average: true,
             ..s.clone()
         };
         let g = finishing(&own, 1, (6, 3));
         assert_eq!((g.loss, g.sparse_start, g.reversal_image), (Loss::LogMse, 1.0, ReversalImage::Sweeps));
+        assert_eq!((g.revive, g.average), (true, true));
+        // Everywhere means in the finishing phase too.
+        let everywhere = finishing(&FitSettings { revive: true, average: true, ..s.clone() }, 1, (6, 3));
+        assert_eq!((everywhere.revive, everywhere.average), (true, true));
         assert_eq!(finishing(&FitSettings { finish_lr: Some(3e-4), ..s }, 1, (6, 3)).lr, 3e-4);
     }
 
