@@ -135,8 +135,9 @@ pub fn scene_with_object(frames: usize, height: usize, width: usize, seed: u64) 
 /// with probability 0.3, by 0.5 to 1.5 pixels in a random direction (small eye movements). In
 /// segments of 60 to 150 frames a disk (radius 4 to 10 pixels, cut from a second pink image,
 /// within 12 pixels of the frame centre) either moves with the scene (an object still in the
-/// world, so the whole image shifts together) or takes steps of its own with the same
-/// statistics (an object moving against its background). Drifting scenes move smoothly and
+/// world, so the whole image shifts together; held at the edge of its range, it slips against
+/// the scene) or takes steps of its own with the same statistics (an object moving against its
+/// background). Drifting scenes move smoothly and
 /// mostly at coarse scales; here the centre and surround of a receptive field see the same fine
 /// steps together or apart, the contrast an object-motion-sensitive cell is built on.
 pub fn jittering_scene_with_object(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
