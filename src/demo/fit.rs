@@ -81,8 +81,9 @@ pub struct FitSettings {
     /// Give this cell its own recipe (needs `separate_cells`): it sits out the joint `epochs`
     /// (loss weight 0), then its channels start afresh and train alone for `finish_epochs`
     /// more, with the reversing movie from the start and the finishing phase's own frames, step
-    /// size, loss, sparse start and reversing movie. A sparse cell then trains as it does alone (`only_cell`), and the others
-    /// do not pay for its movies.
+    /// size, loss, sparse start, reversing movie, revive and average (the `finish_*` settings).
+    /// A sparse cell then trains as it does alone (`only_cell`), and the others do not pay for
+    /// its movies.
     pub finish_cell: Option<usize>,
     /// Epochs of the finishing phase (see `finish_cell`), with their own step decay.
     pub finish_epochs: usize,

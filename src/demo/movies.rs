@@ -117,17 +117,34 @@ pub fn scene_with_object(frames: usize, height: usize, width: usize, seed: u64) 
         vx = decay * vx + kick * nx;
         (y, vy) = reflect(y + vy, vy, cy, reach);
         (x, vx) = reflect(x + vx, vx, cx, reach);
-        // The texture moves with the disk: its view is shifted by the disk's position.
-        let at = ((offset.0 - y).rem_euclid(size as f64), (offset.1 - x).rem_euclid(size as f64));
-        render(&texture, at, view.view_mut());
-        let mut frame = movie.index_axis_mut(ndarray::Axis(0), t);
+        let disk = Disk { texture: &texture, offset, centre: (y, x), radius };
+        disk.paste(movie.index_axis_mut(ndarray::Axis(0), t), &mut view);
+    }
+    movie
+}
+
+/// A disk cut from a periodic `texture` that moves rigidly with it: the texture's view is
+/// shifted by the disk's `centre`, from `offset`.
+struct Disk<'a> {
+    texture: &'a Array2<f32>,
+    offset: (f64, f64),
+    centre: (f64, f64),
+    radius: f64,
+}
+
+impl Disk<'_> {
+    /// Paste the disk over `frame` (`view`: scratch of the frame's shape).
+    fn paste(&self, mut frame: ndarray::ArrayViewMut2<f32>, view: &mut Array2<f32>) {
+        let size = self.texture.nrows() as f64;
+        let (y, x) = self.centre;
+        let at = ((self.offset.0 - y).rem_euclid(size), (self.offset.1 - x).rem_euclid(size));
+        render(self.texture, at, view.view_mut());
         for ((r, c), v) in frame.indexed_iter_mut() {
-            if (r as f64 + 0.5 - y).powi(2) + (c as f64 + 0.5 - x).powi(2) < radius * radius {
+            if (r as f64 + 0.5 - y).powi(2) + (c as f64 + 0.5 - x).powi(2) < self.radius * self.radius {
                 *v = view[[r, c]];
             }
         }
     }
-    movie
 }
 
 /// A pink scene under fixational jitter with objects that either move with it or jitter on their
@@ -137,9 +154,9 @@ pub fn scene_with_object(frames: usize, height: usize, width: usize, seed: u64) 
 /// within 12 pixels of the frame centre) either moves with the scene (an object still in the
 /// world, so the whole image shifts together; held at the edge of its range, it slips against
 /// the scene) or takes steps of its own with the same statistics (an object moving against its
-/// background). Drifting scenes move smoothly and
-/// mostly at coarse scales; here the centre and surround of a receptive field see the same fine
-/// steps together or apart, the contrast an object-motion-sensitive cell is built on.
+/// background). Drifting scenes move smoothly and mostly at coarse scales; here the centre and
+/// surround of a receptive field see the same fine steps together or apart, the contrast an
+/// object-motion-sensitive cell is built on.
 pub fn jittering_scene_with_object(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let size = 4 * height.max(width).next_power_of_two();
@@ -173,16 +190,7 @@ pub fn jittering_scene_with_object(frames: usize, height: usize, width: usize, s
             x = reflect(x + ox, 0.0, cx, reach).0;
             let mut frame = movie.index_axis_mut(ndarray::Axis(0), frame_index);
             render(&scene, at, frame.view_mut());
-            render(
-                &texture,
-                ((offset.0 - y).rem_euclid(size as f64), (offset.1 - x).rem_euclid(size as f64)),
-                view.view_mut(),
-            );
-            for ((r, c), v) in frame.indexed_iter_mut() {
-                if (r as f64 + 0.5 - y).powi(2) + (c as f64 + 0.5 - x).powi(2) < radius * radius {
-                    *v = view[[r, c]];
-                }
-            }
+            Disk { texture: &texture, offset, centre: (y, x), radius }.paste(frame, &mut view);
         }
         t = end;
     }
