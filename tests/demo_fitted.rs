@@ -8,8 +8,9 @@
 //! are ignored in the suite (`cargo test --release --test demo_fitted -- --ignored` runs them).
 //! Run J2 passes the omitted-flash check (7.50 against 8.37) and the reversal (13.0 against
 //! 12.0, the first fit to), and fails the object-motion index (0.08 against 0.73) and cell 1's
-//! held-out r (0.64; cells 0 and 2: 0.96, 0.97). When a fit passes, it ships as the demo model
-//! and the ignores go.
+//! held-out r (0.64; cells 0 and 2: 0.96, 0.97). Session 17 re-planted cell 2 (transient
+//! subunits, a stronger surround: docs/models.md), so J2's cell 2 is now checked against a cell
+//! it was not fitted to. When a fit passes, it ships as the demo model and the ignores go.
 
 mod demo_support;
 

@@ -12,10 +12,10 @@
 //!   threshold and a ceiling. Under steady motion each direction's pool and its delayed copy match
 //!   and cancel; when the bar reverses, the newly driven direction fires until its delayed copy
 //!   catches up: a burst at the reversal.
-//! - cell 2, "object motion": the same subunit types, centre pool minus a surround pool (both
-//!   rectified, the difference rectified), after Olveczky, Baccus & Meister (Nature 2003):
-//!   global jitter drives centre and surround together and they cancel; differential motion
-//!   does not.
+//! - cell 2, "object motion": transient ON and OFF subunits (rectified), a centre pool minus a
+//!   stronger surround pool, the difference rectified, after Olveczky, Baccus & Meister (Nature
+//!   2003): global jitter drives centre and surround together and the surround wins;
+//!   differential motion moves the centre while the surround rests.
 //!
 //! Units: 100 Hz frames (10 ms), 50 um pixels, 40 lags (400 ms), 50 x 50 pixels (2.5 mm).
 
@@ -59,6 +59,22 @@ const DS_WIDTH_MS: f64 = 40.0;
 /// preferred speed is about 7, in the null direction about half that): rectifying above it
 /// makes them direction selective.
 pub(crate) const DS_THRESHOLD: f32 = 4.0;
+
+/// Weight of the ON and OFF subunits' slow undershoot (an alpha function peaking at 70 ms, the
+/// fast lobe peaking at 30 ms): 0.4356 makes their 40-lag filter sum to zero (a unit test holds
+/// it to 1e-3), so the subunits are transient and a steady pattern drives them not at all. With
+/// 0.7 the filter summed to -4.9 and a static grating drove the subunits steadily, so how its
+/// edges fell on the pixel grid set the object-motion cell's answer to global jitter (index
+/// -0.03 at a 225 um period, 0.73 at 200 um; docs/performance.md, sessions 16 and 17).
+const SUBUNIT_UNDERSHOOT: f64 = 0.4356;
+
+/// Weight of the object-motion unit's surround pool relative to its centre pool. Stronger than
+/// the centre, so that the surround's inhibition outweighs the centre's excitation whenever
+/// both move together, whatever part of a grating each pool happens to see (with equal weights
+/// the global-jitter response at a 225 um period was 2.4 against 0.31 at rest; with 1.25 it is
+/// 0.61, with 1.5 0.33, but at 1.5 the cell fires in 6 % of naturalistic frames instead of 15 %
+/// and cell-2 fits from seed 1 found nothing in 12 epochs; docs/performance.md, session 17).
+const SURROUND_GAIN: f32 = 1.25;
 
 /// Delay of the direction-selective pathways' inhibitory copies, ms.
 const DS_DELAY_MS: f64 = 80.0;
@@ -106,9 +122,9 @@ pub fn temporal(pathway: usize) -> Array1<f32> {
     Array1::from_iter((0..LAGS).map(|l| {
         let t = tau(l);
         (match pathway {
-            // Biphasic: a fast positive lobe and a slower undershoot.
-            0 => alpha(t, 30.0) - 0.7 * alpha(t, 70.0),
-            1 => -(alpha(t, 30.0) - 0.7 * alpha(t, 70.0)),
+            // Biphasic and balanced: a fast positive lobe and a slower undershoot.
+            0 => alpha(t, 30.0) - SUBUNIT_UNDERSHOOT * alpha(t, 70.0),
+            1 => -(alpha(t, 30.0) - SUBUNIT_UNDERSHOOT * alpha(t, 70.0)),
             // Damped oscillation, 100 ms period, 150 ms decay, starting at the flash.
             2 => (2.0 * std::f64::consts::PI * t / 100.0).sin() * (-t / 150.0).exp(),
             // Fast monophasic ON, peaking 25 ms after the flash (the ringing's first peak).
@@ -216,7 +232,7 @@ pub fn synthetic_sensor() -> ModelProto {
             w2[[3, sub, y, x]] += 4.0 * v;
         }
         for ((y, x), &v) in surround.indexed_iter() {
-            w2[[3, sub, y, x]] -= 4.0 * v;
+            w2[[3, sub, y, x]] -= 4.0 * SURROUND_GAIN * v;
         }
     }
     let mut b2 = Tensor::zeros(IxDyn(&[UNITS]));
@@ -246,4 +262,39 @@ pub fn synthetic_sensor() -> ModelProto {
     m.dense("units", "readout", &w3, &b3);
     m.node("Softplus", &["readout"], "rates", vec![]);
     m.finish("rates", "synthetic sensor (planted)")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_subunits_are_transient_a_steady_pattern_drives_them_not_at_all() {
+        for pathway in [0, 1] {
+            let h = temporal(pathway);
+            let total: f32 = h.sum();
+            let peak = h.iter().fold(0.0f32, |m, v| m.max(v.abs()));
+            assert!(total.abs() < 1e-3 * peak, "pathway {pathway}: filter sums to {total} (peak {peak})");
+        }
+    }
+
+    #[test]
+    fn the_object_motion_unit_weighs_its_surround_above_its_centre() {
+        let path = std::path::Path::new("planted.onnx");
+        let mut model =
+            crate::model::Model::from_proto(synthetic_sensor(), path, &crate::model::LoadOptions::default()).unwrap();
+        let id = model.graph.find("conv2.weight").unwrap();
+        let w2 = model.graph.param_mut(id).unwrap().clone();
+        for sub in 0..2 {
+            let map = w2.index_axis(ndarray::Axis(0), 3).index_axis(ndarray::Axis(0), sub).to_owned();
+            let excitation: f32 = map.iter().filter(|v| **v > 0.0).sum();
+            let inhibition: f32 = -map.iter().filter(|v| **v < 0.0).sum::<f32>();
+            assert!((excitation - 4.0).abs() < 1e-4, "centre weight {excitation}");
+            assert!(
+                (inhibition / excitation - SURROUND_GAIN).abs() < 1e-4,
+                "surround / centre {}",
+                inhibition / excitation
+            );
+        }
+    }
 }

@@ -14,14 +14,16 @@ use serde_json::Value;
 use std::path::Path;
 
 /// The planted pathways of each cell (by output index): first-layer channel and its sign on
-/// the cell (true = excitatory). See `planted.rs` for how each is built.
+/// the cell (true = excitatory), summed over space as a unit's sign is (its path gradient
+/// summed over positions). See `planted.rs` for how each is built.
 pub const PLANTED: [&[(usize, bool)]; 3] = [
     // Resonant excitation, fast ON inhibition.
     &[(2, true), (3, false)],
     // Each direction's pool excites, its delayed copy inhibits.
     &[(4, true), (5, false), (6, true), (7, false)],
-    // ON and OFF subunits, both excitatory in the centre.
-    &[(0, true), (1, true)],
+    // ON and OFF subunits: excitatory in the centre, inhibitory in the surround, which weighs
+    // 1.25 x the centre, so inhibitory summed over space.
+    &[(0, false), (1, false)],
 ];
 
 /// A filter correlation at or above this counts as recovered (issue criterion).
@@ -161,11 +163,15 @@ mod tests {
         assert_eq!((r.unit_channel, r.matched_channel), (7, 2));
         assert!((r.filter_correlation - 1.0).abs() < 1e-9);
         assert!(!r.sign_matches && !r.recovered);
-        // The OFF subunit's filter is the ON one negated: an ON-like unit matches pathway 0.
+        // The OFF subunit's filter is the ON one negated: an ON-like unit matches pathway 0, and
+        // like the planted subunits (surround outweighing centre) it must inhibit summed over space.
         let on =
-            compare(2, &json!({"units": [unit(1, 0.5, "excitatory", planted_temporal(0))]}), Path::new("s")).unwrap();
+            compare(2, &json!({"units": [unit(1, 0.5, "inhibitory", planted_temporal(0))]}), Path::new("s")).unwrap();
         assert_eq!(on.matched_channel, 0);
         assert!(on.recovered);
+        let excitatory =
+            compare(2, &json!({"units": [unit(1, 0.5, "excitatory", planted_temporal(0))]}), Path::new("s")).unwrap();
+        assert!(!excitatory.sign_matches && !excitatory.recovered);
         assert!((on.planted[1].filter_correlation + 1.0).abs() < 1e-6);
     }
 

@@ -1,8 +1,9 @@
 //! Object motion versus background motion: a grating in a central disc and a grating in the
 //! surround jitter either together ("global") or independently ("differential"). Object-motion
 //! sensitive cells fire for differential but not global jitter (Olveczky, Baccus & Meister
-//! 2003, Nature; from memory). Metric: object-motion index (differential - global) /
-//! (differential + global).
+//! 2003, Nature; from memory). At each step time a path holds still or steps left or right,
+//! so in differential trials one region often moves while the other rests. Metric:
+//! object-motion index (differential - global) / (differential + global).
 
 use super::{Measured, Observed, Protocol};
 use crate::response::measure::{index, json, mean};
@@ -15,12 +16,13 @@ use serde_json::json;
 /// The protocol.
 pub struct DifferentialMotion;
 
-/// A jitter path: every `interval` frames the offset steps by +-`step` (fair coin), in pixels.
-pub fn random_walk(rng: &mut ChaCha8Rng, frames: usize, interval: usize, step: f64) -> Vec<f64> {
+/// A jitter path: every `interval` frames the offset holds with probability `hold`, else steps
+/// by +-`step` (fair coin), in pixels.
+pub fn random_walk(rng: &mut ChaCha8Rng, frames: usize, interval: usize, step: f64, hold: f64) -> Vec<f64> {
     let mut x = 0.0;
     (0..frames)
         .map(|t| {
-            if t > 0 && t % interval == 0 {
+            if t > 0 && t % interval == 0 && !(hold > 0.0 && rng.random_bool(hold)) {
                 x += if rng.random_bool(0.5) { step } else { -step };
             }
             x
@@ -52,6 +54,7 @@ impl Protocol for DifferentialMotion {
             Spec::num("centre_um", "um", 350.0, 1.0, 1e5, "from memory: a centre patch a few hundred um across (Olveczky et al. 2003)", "diameter of the central disc"),
             Spec::num("period_um", "um", 200.0, 2.0, 1e5, "from memory: bars of about 100 um (Olveczky et al. 2003)", "grating period (one dark + one bright bar)"),
             Spec::num("step_um", "um", 50.0, 0.1, 1e5, "from memory: jitter steps of the order of a photoreceptor spacing to tens of um (Olveczky et al. 2003)", "jitter step"),
+            Spec::num("hold", "", 0.5, 0.0, 0.99, "chosen on the planted sensor (docs/performance.md, session 17): without holds both regions always step at the same times and differential jitter differs from global only in the steps' directions", "probability that a jitter path holds still at a step time (each region's path on its own in differential trials)"),
             Spec::num("interval_ms", "ms", 30.0, 1.0, 10000.0, "from memory: a new step every ~15-30 ms (Olveczky et al. 2003)", "time between jitter steps"),
             Spec::num("trial_ms", "ms", 3000.0, 10.0, 600000.0, "common practice", "duration of one global or differential trial"),
             Spec::num("trials", "", 2.0, 1.0, 1000.0, "common practice", "pairs of (global, differential) trials"),
@@ -76,14 +79,16 @@ impl Protocol for DifferentialMotion {
                     .collect()
             })
             .collect();
+        let hold = p.num("hold");
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
         let trials = p.num("trials") as usize;
         let mut movie = c.blank(2 * trials * trial)?;
         let (mut events, mut windows) = (Vec::new(), Vec::new());
         for k in 0..2 * trials {
             let differential = k % 2 == 1;
-            let centre = random_walk(&mut rng, trial, interval, step);
-            let surround = if differential { random_walk(&mut rng, trial, interval, step) } else { centre.clone() };
+            let centre = random_walk(&mut rng, trial, interval, step, hold);
+            let surround =
+                if differential { random_walk(&mut rng, trial, interval, step, hold) } else { centre.clone() };
             let start = k * trial;
             let cond = if differential { "differential" } else { "global" };
             events.push(Event { name: format!("{cond}_start"), frame: start, condition: Some(cond.into()) });
@@ -156,14 +161,28 @@ mod tests {
     #[test]
     fn differential_trajectories_are_uncorrelated_over_a_long_run() {
         let mut rng = ChaCha8Rng::seed_from_u64(11);
-        let a = random_walk(&mut rng, 200_000, 1, 1.0);
-        let b = random_walk(&mut rng, 200_000, 1, 1.0);
+        let a = random_walk(&mut rng, 200_000, 1, 1.0, 0.0);
+        let b = random_walk(&mut rng, 200_000, 1, 1.0, 0.0);
         let steps = |w: &[f64]| w.windows(2).map(|p| p[1] - p[0]).collect::<Vec<_>>();
         let (sa, sb) = (steps(&a), steps(&b));
         let r: f64 = sa.iter().zip(&sb).map(|(x, y)| x * y).sum::<f64>() / sa.len() as f64;
         // Independent fair +-1 steps: correlation ~ N(0, 1/sqrt(n)); 5 sigma is 0.011.
         assert!(r.abs() < 0.011, "step correlation {r}");
         assert!(sa.iter().all(|s| s.abs() == 1.0));
+    }
+
+    #[test]
+    fn a_path_holds_still_at_the_hold_fraction_of_step_times() {
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let (n, interval) = (100_000, 3);
+        let path = random_walk(&mut rng, n * interval, interval, 2.0, 0.5);
+        let steps: Vec<f64> = (1..n).map(|k| path[k * interval] - path[k * interval - 1]).collect();
+        let held = steps.iter().filter(|s| **s == 0.0).count() as f64 / steps.len() as f64;
+        // Binomial(n, 0.5): s.d. of the fraction 0.0016; 5 s.d. is 0.008.
+        assert!((held - 0.5).abs() < 0.008, "held at {held} of step times");
+        assert!(steps.iter().all(|s| [0.0, 2.0, -2.0].contains(s)));
+        // Between step times the path does not move.
+        assert!((0..n * interval).filter(|t| t % interval != 0).all(|t| t == 0 || path[t] == path[t - 1]));
     }
 
     #[test]
