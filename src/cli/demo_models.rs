@@ -145,6 +145,10 @@ pub struct DemoModelsArgs {
     /// positions (0: none).
     #[arg(long, value_parser = non_negative, default_value_t = FitSettings::default().readout_sparsity)]
     pub readout_sparsity: f32,
+    /// Weight of a smoothness penalty on the first layer's spatial and temporal filters
+    /// (squared Laplacians and second differences; 0: none).
+    #[arg(long, value_parser = non_negative, default_value_t = FitSettings::default().smoothness)]
+    pub smoothness: f32,
 }
 
 /// Parse a number that must be zero or more.
@@ -214,6 +218,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             planted_first_layer: a.planted_first_layer,
             group_sparsity: a.group_sparsity,
             readout_sparsity: a.readout_sparsity,
+            smoothness: a.smoothness,
             ..Default::default()
         };
         let out = OutputDir::create(&a.out)?;

@@ -168,6 +168,11 @@ pub struct FitSettings {
     /// planted cells read theirs at the 4 central positions, and a fitted readout spread over
     /// several positions smears a bar's timing (docs/performance.md, session 14). 0: none.
     pub readout_sparsity: f32,
+    /// Weight of a smoothness penalty on the first layer: `smoothness` times the sum of squared
+    /// Laplacians of its spatial factors plus squared second differences of its temporal
+    /// factors (see [`super::roughness`]; smooth filters are the usual prior of CNN encoding
+    /// models, common practice). 0: none.
+    pub smoothness: f32,
 }
 
 impl Default for FitSettings {
@@ -212,6 +217,7 @@ impl Default for FitSettings {
             planted_first_layer: false,
             group_sparsity: 0.0,
             readout_sparsity: 0.0,
+            smoothness: 0.0,
         }
     }
 }
@@ -697,6 +703,13 @@ impl Student {
         }
     }
 
+    /// Add the gradient of the first layer's smoothness penalty (see
+    /// [`FitSettings::smoothness`]) to its temporal and spatial factors' gradients.
+    fn penalise_roughness(&self, grads: &mut [Tensor], weight: f32) {
+        let (temporal, rest) = grads.split_at_mut(1);
+        super::roughness::add_gradient(&self.factors[1], &self.factors[0], &mut rest[0], &mut temporal[0], weight);
+    }
+
     /// Zero the gradients of the first-layer channels held fixed (see
     /// [`Student::plant_first_layer`]): with zero gradients Adam never moves them.
     fn freeze(&self, grads: &mut [Tensor]) {
@@ -1165,6 +1178,7 @@ impl Run {
             let mut grads = self.student.chain(full);
             self.student.penalise_groups(&mut grads, s.group_sparsity);
             self.student.penalise_readout(&mut grads, s.readout_sparsity);
+            self.student.penalise_roughness(&mut grads, s.smoothness);
             self.student.mask(&mut grads);
             self.student.freeze(&mut grads);
             let student = &self.student;

@@ -6,6 +6,7 @@ pub mod heldout;
 pub mod movies;
 pub mod planted;
 pub mod recovered;
+pub mod roughness;
 pub mod train;
 
 use crate::output::OutputDir;
