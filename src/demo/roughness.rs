@@ -49,21 +49,6 @@ fn filters(t: &Tensor) -> ArrayView2<'_, f32> {
     t.view().into_shape_with_order((n, lags)).expect("a [n, lags, 1, 1] temporal factor")
 }
 
-/// The penalty: sum of squared Laplacians of every map of `spatial` plus sum of squared second
-/// differences of every filter of `temporal`, in f64.
-pub fn roughness(spatial: &Tensor, temporal: &Tensor) -> f64 {
-    let mut total = 0.0;
-    for m in maps(spatial) {
-        let mut lap = ndarray::Array2::<f32>::zeros(m.dim());
-        add_laplacian(m, lap.view_mut(), 1.0);
-        total += lap.iter().map(|v| f64::from(*v).powi(2)).sum::<f64>();
-    }
-    for f in filters(temporal).rows() {
-        total += f.windows(3).into_iter().map(|w| f64::from(w[0] - 2.0 * w[1] + w[2]).powi(2)).sum::<f64>();
-    }
-    total
-}
-
 /// Add `weight` times the penalty's gradient to `grad_spatial` and `grad_temporal` (same shapes
 /// as the factors): `2 L(L w)` for each map (the Laplacian with zero outside is symmetric) and
 /// `2 D'D w` for each filter (`D` the second difference).
@@ -104,6 +89,21 @@ mod tests {
     use ndarray::IxDyn;
     use rand::rngs::ChaCha8Rng;
     use rand::{RngExt, SeedableRng};
+
+    /// The penalty: sum of squared Laplacians of every map of `spatial` plus sum of squared second
+    /// differences of every filter of `temporal`, in f64.
+    fn roughness(spatial: &Tensor, temporal: &Tensor) -> f64 {
+        let mut total = 0.0;
+        for m in maps(spatial) {
+            let mut lap = ndarray::Array2::<f32>::zeros(m.dim());
+            add_laplacian(m, lap.view_mut(), 1.0);
+            total += lap.iter().map(|v| f64::from(*v).powi(2)).sum::<f64>();
+        }
+        for f in filters(temporal).rows() {
+            total += f.windows(3).into_iter().map(|w| f64::from(w[0] - 2.0 * w[1] + w[2]).powi(2)).sum::<f64>();
+        }
+        total
+    }
 
     fn random(shape: &[usize], rng: &mut ChaCha8Rng) -> Tensor {
         Tensor::from_shape_fn(IxDyn(shape), |_| rng.random_range(-1.0f32..1.0))

@@ -17,7 +17,8 @@ use serde_json::json;
 pub struct DifferentialMotion;
 
 /// A jitter path: every `interval` frames the offset holds with probability `hold`, else steps
-/// by +-`step` (fair coin), in pixels.
+/// by +-`step` (fair coin), in pixels. With `hold` 0 no hold is drawn, so the random stream (and
+/// the path) is the one drawn before holds existed.
 pub fn random_walk(rng: &mut ChaCha8Rng, frames: usize, interval: usize, step: f64, hold: f64) -> Vec<f64> {
     let mut x = 0.0;
     (0..frames)
