@@ -1,7 +1,8 @@
 //! `sufficit demo-models --out models/ [--fit]` (hidden, for maintainers): write the planted
 //! demo model and, with `--fit`, train the fitted demo model on it.
 
-use crate::demo::fit::{fit, FitSettings, Hidden, ObjectMotion, ReversalImage};
+use crate::demo::fit::{fit, Epoch, FitSettings, Hidden, ObjectMotion, ReversalImage};
+use crate::demo::recipe;
 use crate::output::OutputDir;
 use crate::Result;
 use clap::Args;
@@ -19,135 +20,148 @@ pub struct DemoModelsArgs {
     /// Also fit the CNN to the planted model (minutes).
     #[arg(long)]
     pub fit: bool,
+    /// Fit each cell alone by its own settings from this JSON file, side by side, and join them
+    /// (a recipe: {"cells": [settings of cell 0, 1, 2]}, or the .json beside a fitted model,
+    /// which holds the recipe it was fitted with). Excludes the single-fit options below.
+    #[arg(long, value_name = "FILE", requires = "fit")]
+    pub recipe: Option<std::path::PathBuf>,
+    /// The settings of one fit of every cell at once (without --recipe).
+    #[command(flatten)]
+    pub one: OneFitArgs,
+}
+
+/// Settings of a single fit (every cell in one student).
+#[derive(Debug, Args)]
+pub struct OneFitArgs {
     /// Training frames per epoch of each of binary noise, flicker and naturalistic movie.
-    #[arg(long, default_value_t = FitSettings::default().train_frames)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().train_frames)]
     pub train_frames: usize,
     /// Frames of naturalistic movie with a moving object per epoch.
-    #[arg(long, default_value_t = FitSettings::default().object_frames)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().object_frames)]
     pub object_frames: usize,
     /// How the object movie moves: scene and object drifting smoothly, the scene jittering with
     /// objects that jitter with it or on their own, or half of each.
-    #[arg(long, value_enum, default_value_t = ObjectMotion::Drift)]
+    #[arg(long, conflicts_with = "recipe", value_enum, default_value_t = ObjectMotion::Drift)]
     pub object_motion: ObjectMotion,
     /// Frames of reversing movie (see --reversal-image) per epoch.
-    #[arg(long, default_value_t = FitSettings::default().reversal_frames)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().reversal_frames)]
     pub reversal_frames: usize,
     /// Fraction of the epochs (0 to 1) after which the reversing movie joins the training
     /// movies.
-    #[arg(long, value_parser = fraction, default_value_t = FitSettings::default().reversal_from)]
+    #[arg(long, conflicts_with = "recipe", value_parser = fraction, default_value_t = FitSettings::default().reversal_from)]
     pub reversal_from: f64,
     /// What the reversing movie moves: a pink texture, thin lines, parallel bars, lone bars,
     /// both kinds of bars by turns (with short or long steady segments, or both), a checkerboard,
     /// lone bars swept over the centre, or those sweeps and parallel bars by turns.
-    #[arg(long, value_enum, default_value_t = ReversalImage::Pink)]
+    #[arg(long, conflicts_with = "recipe", value_enum, default_value_t = ReversalImage::Pink)]
     pub reversal_image: ReversalImage,
     /// Passes over the training windows.
-    #[arg(long, default_value_t = FitSettings::default().epochs)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().epochs)]
     pub epochs: usize,
     /// Seed of movies, initial weights and batch order.
-    #[arg(long, default_value_t = 1)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = 1)]
     pub seed: u64,
     /// Adam step size.
-    #[arg(long, default_value_t = FitSettings::default().lr)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().lr)]
     pub lr: f32,
     /// The objective.
-    #[arg(long, value_enum, default_value_t = FitSettings::default().loss)]
+    #[arg(long, conflicts_with = "recipe", value_enum, default_value_t = FitSettings::default().loss)]
     pub loss: crate::demo::train::Loss,
     /// Windows per Adam step.
-    #[arg(long, default_value_t = FitSettings::default().batch)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().batch)]
     pub batch: usize,
     /// Channels of the two convolutions, e.g. 16,8.
-    #[arg(long, value_name = "C1,C2", value_parser = channels, default_value = "16,8")]
+    #[arg(long, conflicts_with = "recipe", value_name = "C1,C2", value_parser = channels, default_value = "16,8")]
     pub channels: (usize, usize),
     /// Give each cell its own share of the channels (both counts multiples of the 3 cells), so
     /// one cell's fit cannot disturb another's.
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub separate_cells: bool,
     /// Train this many students from consecutive seeds for --restart-epochs, keep for each
     /// cell the one predicting it best on the held-out movies, and train on (1: no restarts).
-    #[arg(long, default_value_t = FitSettings::default().restarts)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().restarts)]
     pub restarts: usize,
     /// Epochs of each restart before the choice (part of --epochs).
-    #[arg(long, default_value_t = FitSettings::default().restart_epochs)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().restart_epochs)]
     pub restart_epochs: usize,
     /// Train only this cell (0, 1 or 2), all channels on it: to study one cell's fit quickly.
-    #[arg(long, value_name = "CELL")]
+    #[arg(long, conflicts_with = "recipe", value_name = "CELL")]
     pub cell: Option<usize>,
     /// The hidden layers' nonlinearity.
-    #[arg(long, value_enum, default_value_t = Hidden::Softplus)]
+    #[arg(long, conflicts_with = "recipe", value_enum, default_value_t = Hidden::Softplus)]
     pub hidden: Hidden,
     /// Give this cell its own recipe (needs --separate-cells): it sits out the --epochs, then
     /// its channels train afresh and alone for --finish-epochs, with the reversing movie
     /// throughout.
-    #[arg(long, value_name = "CELL")]
+    #[arg(long, conflicts_with = "recipe", value_name = "CELL")]
     pub finish_cell: Option<usize>,
     /// Epochs of the --finish-cell phase.
-    #[arg(long, default_value_t = FitSettings::default().finish_epochs)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().finish_epochs)]
     pub finish_epochs: usize,
     /// Frames of each of binary noise, flicker and naturalistic movie per --finish-cell epoch.
-    #[arg(long, default_value_t = FitSettings::default().finish_train_frames)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().finish_train_frames)]
     pub finish_train_frames: usize,
     /// Adam step size of the --finish-cell phase (default: --lr).
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub finish_lr: Option<f32>,
     /// Objective of the --finish-cell phase (default: --loss).
-    #[arg(long, value_enum)]
+    #[arg(long, conflicts_with = "recipe", value_enum)]
     pub finish_loss: Option<crate::demo::train::Loss>,
     /// --sparse-start of the --finish-cell phase's fresh channels (default: --sparse-start).
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub finish_sparse_start: Option<f64>,
     /// Reversing movie of the --finish-cell phase (default: --reversal-image).
-    #[arg(long, value_enum)]
+    #[arg(long, conflicts_with = "recipe", value_enum)]
     pub finish_reversal_image: Option<ReversalImage>,
     /// Revive dead channels in the --finish-cell phase only (--revive: in every phase).
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub finish_revive: bool,
     /// Average the --finish-cell phase's tail only (--average: in every phase).
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub finish_average: bool,
     /// Clip each batch's gradient at this many running means of recent gradient norms (0: no
     /// clipping).
-    #[arg(long, default_value_t = FitSettings::default().clip)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().clip)]
     pub clip: f64,
     /// Train this many epochs on each draw of movies (1: fresh movies every epoch).
-    #[arg(long, default_value_t = FitSettings::default().movies_every)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().movies_every)]
     pub movies_every: usize,
     /// Give every batch an equal share of the strongest responses (stratified batches).
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub stratify: bool,
     /// Keep the readout's weights non-negative, so every sign sits in the convolutions.
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub positive_readout: bool,
     /// After each epoch, give dead hidden channels fresh incoming weights (and no outgoing
     /// weight) so they can learn again.
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub revive: bool,
     /// Ship the mean of the weights over the steps after the step size drops (--decay-after)
     /// instead of the last step's.
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub average: bool,
     /// Fraction of the epochs (0 to 1) after which the step size drops to a fifth.
-    #[arg(long, value_parser = fraction, default_value_t = FitSettings::default().decay_after)]
+    #[arg(long, conflicts_with = "recipe", value_parser = fraction, default_value_t = FitSettings::default().decay_after)]
     pub decay_after: f64,
     /// Start each hidden channel this many s.d. of its input below its threshold (0: at it),
     /// so it starts active on fewer windows.
-    #[arg(long, default_value_t = FitSettings::default().sparse_start)]
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().sparse_start)]
     pub sparse_start: f64,
     /// A probe: with --cell 1, hold the first four first-layer channels at the planted
     /// direction-selective pathways and train the rest.
-    #[arg(long)]
+    #[arg(long, conflicts_with = "recipe")]
     pub planted_first_layer: bool,
     /// Weight of a group-sparsity penalty that pushes each second-layer unit to read few
     /// first-layer channels (0: none).
-    #[arg(long, value_parser = non_negative, default_value_t = FitSettings::default().group_sparsity)]
+    #[arg(long, conflicts_with = "recipe", value_parser = non_negative, default_value_t = FitSettings::default().group_sparsity)]
     pub group_sparsity: f32,
     /// Weight of an L1 penalty on each cell's readout weights, so it reads its units at few
     /// positions (0: none).
-    #[arg(long, value_parser = non_negative, default_value_t = FitSettings::default().readout_sparsity)]
+    #[arg(long, conflicts_with = "recipe", value_parser = non_negative, default_value_t = FitSettings::default().readout_sparsity)]
     pub readout_sparsity: f32,
     /// Weight of a smoothness penalty on the first layer's spatial and temporal filters
     /// (squared Laplacians and second differences; 0: none).
-    #[arg(long, value_parser = non_negative, default_value_t = FitSettings::default().smoothness)]
+    #[arg(long, conflicts_with = "recipe", value_parser = non_negative, default_value_t = FitSettings::default().smoothness)]
     pub smoothness: f32,
 }
 
@@ -179,77 +193,107 @@ fn fraction(s: &str) -> Result<f64, String> {
 pub fn run(a: &DemoModelsArgs) -> Result<()> {
     crate::demo::write_planted(&a.out)?;
     println!("wrote {}", a.out.join(crate::demo::PLANTED_FILE).display());
-    if a.fit {
-        let settings = FitSettings {
-            seed: a.seed,
-            train_frames: a.train_frames,
-            object_frames: a.object_frames,
-            object_motion: a.object_motion,
-            reversal_frames: a.reversal_frames,
-            reversal_from: a.reversal_from,
-            reversal_image: a.reversal_image,
-            epochs: a.epochs,
-            lr: a.lr,
-            loss: a.loss,
-            channels: a.channels,
-            batch: a.batch.max(1),
-            separate_cells: a.separate_cells,
-            restarts: a.restarts.max(1),
-            restart_epochs: a.restart_epochs.min(a.epochs),
-            only_cell: a.cell,
-            hidden: a.hidden,
-            finish_cell: a.finish_cell,
-            finish_epochs: a.finish_epochs,
-            finish_train_frames: a.finish_train_frames,
-            finish_lr: a.finish_lr,
-            finish_loss: a.finish_loss,
-            finish_sparse_start: a.finish_sparse_start,
-            finish_reversal_image: a.finish_reversal_image,
-            finish_revive: a.finish_revive,
-            finish_average: a.finish_average,
-            clip: a.clip,
-            movies_every: a.movies_every.max(1),
-            stratify: a.stratify,
-            positive_readout: a.positive_readout,
-            revive: a.revive,
-            average: a.average,
-            decay_after: a.decay_after,
-            sparse_start: a.sparse_start,
-            planted_first_layer: a.planted_first_layer,
-            group_sparsity: a.group_sparsity,
-            readout_sparsity: a.readout_sparsity,
-            smoothness: a.smoothness,
-            ..Default::default()
-        };
-        let out = OutputDir::create(&a.out)?;
-        let started = std::time::Instant::now();
-        let (model, report) = fit(&settings, &|e| {
-            eprintln!(
-                "{}epoch {} ({:.0} s): training loss {:.4}, per cell {:.3?}, held-out r {:.3?} (noise, flicker, scenes, object, reversing: {:.2?}){}",
-                e.restart.map_or(String::new(), |k| format!("restart {k}, ")),
-                e.number,
-                started.elapsed().as_secs_f64(), e.loss, e.cell_loss, e.heldout_correlation, e.heldout_by_kind,
-                match e.revived { (0, 0) => String::new(), (a, b) => format!("; revived {a} + {b} dead channels") }
-            );
-            // The latest epoch's model, so a fit stopped early leaves one to examine.
-            if let Err(err) = out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&e.model)) {
-                eprintln!("epoch {}: could not write the model: {err}", e.number);
-            }
-        })?;
-        out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&model))?;
-        out.write_json(
-            "synthetic-sensor-fitted.json",
-            &json!({"schema": "sufficit/1", "settings": settings, "report": report, "version": env!("CARGO_PKG_VERSION")}),
-        )?;
-        println!(
-            "wrote {}: held-out correlation per cell {:?} (restart kept per cell {:?}), {:.0} s",
-            a.out.join(FITTED_FILE).display(),
-            report.heldout_correlation,
-            report.chosen_restart,
-            report.seconds
-        );
+    if !a.fit {
+        return Ok(());
     }
+    let out = OutputDir::create(&a.out)?;
+    let started = std::time::Instant::now();
+    let (model, record, summary) = match &a.recipe {
+        Some(path) => {
+            let recipe = recipe::read(path)?;
+            let (model, report) =
+                recipe::fit_recipe(&recipe, &|k, e| eprintln!("cell {k}, {}", epoch_line(e, started.elapsed())))?;
+            let summary = format!(
+                "held-out correlation per cell {:?} (each cell fitted alone), {:.0} s",
+                report.heldout_correlation, report.seconds
+            );
+            (model, json!({"schema": "sufficit/1", "recipe": recipe, "report": report}), summary)
+        }
+        None => {
+            let settings = one_fit(&a.one);
+            let (model, report) = fit(&settings, &|e| {
+                eprintln!("{}", epoch_line(e, started.elapsed()));
+                // The latest epoch's model, so a fit stopped early leaves one to examine.
+                if let Err(err) = out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&e.model)) {
+                    eprintln!("epoch {}: could not write the model: {err}", e.number);
+                }
+            })?;
+            let summary = format!(
+                "held-out correlation per cell {:?} (restart kept per cell {:?}), {:.0} s",
+                report.heldout_correlation, report.chosen_restart, report.seconds
+            );
+            (model, json!({"schema": "sufficit/1", "settings": settings, "report": report}), summary)
+        }
+    };
+    let mut record = record;
+    record["version"] = json!(env!("CARGO_PKG_VERSION"));
+    out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&model))?;
+    out.write_json("synthetic-sensor-fitted.json", &record)?;
+    println!("wrote {}: {summary}", a.out.join(FITTED_FILE).display());
     Ok(())
+}
+
+/// One line of progress for epoch `e`, `elapsed` into the fit.
+fn epoch_line(e: &Epoch, elapsed: std::time::Duration) -> String {
+    format!(
+        "{}epoch {} ({:.0} s): training loss {:.4}, per cell {:.3?}, held-out r {:.3?} (noise, flicker, scenes, object, reversing: {:.2?}){}",
+        e.restart.map_or(String::new(), |k| format!("restart {k}, ")),
+        e.number,
+        elapsed.as_secs_f64(),
+        e.loss,
+        e.cell_loss,
+        e.heldout_correlation,
+        e.heldout_by_kind,
+        match e.revived {
+            (0, 0) => String::new(),
+            (a, b) => format!("; revived {a} + {b} dead channels"),
+        }
+    )
+}
+
+/// The settings of a single fit from its options.
+fn one_fit(a: &OneFitArgs) -> FitSettings {
+    FitSettings {
+        seed: a.seed,
+        train_frames: a.train_frames,
+        object_frames: a.object_frames,
+        object_motion: a.object_motion,
+        reversal_frames: a.reversal_frames,
+        reversal_from: a.reversal_from,
+        reversal_image: a.reversal_image,
+        epochs: a.epochs,
+        lr: a.lr,
+        loss: a.loss,
+        channels: a.channels,
+        batch: a.batch.max(1),
+        separate_cells: a.separate_cells,
+        restarts: a.restarts.max(1),
+        restart_epochs: a.restart_epochs.min(a.epochs),
+        only_cell: a.cell,
+        hidden: a.hidden,
+        finish_cell: a.finish_cell,
+        finish_epochs: a.finish_epochs,
+        finish_train_frames: a.finish_train_frames,
+        finish_lr: a.finish_lr,
+        finish_loss: a.finish_loss,
+        finish_sparse_start: a.finish_sparse_start,
+        finish_reversal_image: a.finish_reversal_image,
+        finish_revive: a.finish_revive,
+        finish_average: a.finish_average,
+        clip: a.clip,
+        movies_every: a.movies_every.max(1),
+        stratify: a.stratify,
+        positive_readout: a.positive_readout,
+        revive: a.revive,
+        average: a.average,
+        decay_after: a.decay_after,
+        sparse_start: a.sparse_start,
+        planted_first_layer: a.planted_first_layer,
+        group_sparsity: a.group_sparsity,
+        readout_sparsity: a.readout_sparsity,
+        smoothness: a.smoothness,
+        ..Default::default()
+    }
 }
 
 #[cfg(test)]

@@ -19,12 +19,13 @@ use rand::rngs::ChaCha8Rng;
 use rand::seq::SliceRandom;
 use rand::{RngExt, SeedableRng};
 use rayon::prelude::*;
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 use std::path::Path;
 use std::time::Instant;
 
 /// How to fit.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
 pub struct FitSettings {
     /// Seed of movies, initial weights and batch order.
     pub seed: u64,
@@ -223,7 +224,7 @@ impl Default for FitSettings {
 }
 
 /// The nonlinearity of the student's two hidden layers (its output is always softplus).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, clap::ValueEnum)]
 #[serde(rename_all = "kebab-case")]
 pub enum Hidden {
     /// Smooth rectification, `ln(1 + e^x)`: its bend is one unit wide, so a sharp threshold
@@ -244,7 +245,7 @@ impl Hidden {
 }
 
 /// How the object movie moves.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, clap::ValueEnum)]
 #[serde(rename_all = "kebab-case")]
 pub enum ObjectMotion {
     /// Scene and object drift smoothly and independently ([`scene_with_object`]).
@@ -257,7 +258,7 @@ pub enum ObjectMotion {
 }
 
 /// The image a reversing movie moves.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, clap::ValueEnum)]
 #[serde(rename_all = "kebab-case")]
 pub enum ReversalImage {
     /// A pink (1/f) texture ([`reversing_texture`]).
@@ -331,7 +332,7 @@ const RANK: usize = 2;
 /// work than the full first layer); the shipped model is written with ordinary Conv and Gemm
 /// weights, the sums of products of the factors.
 #[derive(Clone)]
-struct Student {
+pub(super) struct Student {
     /// conv1 temporal `[c1 * RANK, LAGS, 1, 1]`, conv1 spatial `[c1, RANK, k1, k1]`, conv1 bias,
     /// conv2 weight `[c2, c1, k2, k2]`, conv2 bias, readout mask `[cells, side * side]`, readout
     /// features `[cells, c2]`, readout bias.
@@ -457,6 +458,43 @@ impl Student {
             .index_axis_mut(Axis(0), cell)
             .slice_axis_mut(Axis(0), cell_rows(4, groups, cell))
             .assign(&p[6].index_axis(Axis(0), cell));
+    }
+
+    /// One student with separate cells, cell `k`'s channels and readout row from `parts[k]`, a
+    /// student with shared channels trained on cell `k` alone (see [`super::recipe`]). Every
+    /// part must have the same channels, kernels and hidden nonlinearity.
+    pub(super) fn assemble(parts: &[Student]) -> Result<Student> {
+        let first = parts.first().filter(|_| parts.len() == CELLS).ok_or_else(|| {
+            crate::Error::Usage(format!("fit: assembling needs one part per cell ({CELLS}), got {}", parts.len()))
+        })?;
+        let shapes = |st: &Student| st.factors.iter().map(|t| t.shape().to_vec()).collect::<Vec<_>>();
+        if let Some(k) = parts.iter().position(|p| shapes(p) != shapes(first) || p.hidden != first.hidden) {
+            return Err(crate::Error::Usage(format!(
+                "fit: cell {k}'s part differs from cell 0's in channels, kernels or hidden nonlinearity; \
+                 the cells of one model need the same"
+            )));
+        }
+        let groups = (first.factors[1].shape()[0], first.factors[3].shape()[0]);
+        let factors = first
+            .factors
+            .iter()
+            .enumerate()
+            .map(|(f, t)| {
+                let mut dims = t.shape().to_vec();
+                if f < 5 {
+                    dims[0] = CELLS * rows_per_cell(f, groups);
+                }
+                if f == 3 || f == 6 {
+                    dims[1] *= CELLS;
+                }
+                Tensor::zeros(IxDyn(&dims))
+            })
+            .collect();
+        let mut whole = Student { factors, per_cell: Some(groups), positive_readout: false, ..first.without_factors() };
+        for (cell, part) in parts.iter().enumerate() {
+            whole.put_cell(cell, part);
+        }
+        Ok(whole)
     }
 
     /// The clipping group of entry `flat` of factor `factor`: its cell when cells have their
@@ -735,7 +773,7 @@ impl Student {
     }
 
     /// The shipped model: ordinary Conv and Gemm weights.
-    fn proto(&self) -> tract_onnx::pb::ModelProto {
+    pub(super) fn proto(&self) -> tract_onnx::pb::ModelProto {
         let mut m = OnnxBuilder::new("stimulus", &[LAGS, SIZE, SIZE]);
         m.conv("stimulus", "conv1", &self.conv1(), &self.factors[2]);
         self.rest(m, &self.factors[3], &self.factors[4])
@@ -753,7 +791,7 @@ impl Student {
 }
 
 /// Cells of the synthetic sensor.
-const CELLS: usize = 3;
+pub(super) const CELLS: usize = 3;
 
 /// Random weights of shape `dims`, uniform at the usual 1 / sqrt(`fan_in`) scale (common
 /// practice): the student's start, and a revived channel's fresh start.
@@ -1334,6 +1372,12 @@ fn finishing(s: &FitSettings, cell: usize, channels: (usize, usize)) -> FitSetti
 /// it best on the held-out movies (validation, never the protocols), and the assembled student
 /// trains on for the remaining epochs. Returns the model and the report.
 pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb::ModelProto, FitReport)> {
+    let (student, report) = fit_student(s, progress)?;
+    Ok((student.proto(), report))
+}
+
+/// [`fit`], returning the student itself (so a recipe can assemble cells fitted apart).
+pub(super) fn fit_student(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(Student, FitReport)> {
     let t0 = Instant::now();
     if s.separate_cells && (s.channels.0 % CELLS != 0 || s.channels.1 % CELLS != 0) {
         return Err(crate::Error::Usage(format!(
@@ -1451,7 +1495,7 @@ pub fn fit(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<(tract_onnx::pb
         }
     }
     Ok((
-        run.current().proto(),
+        run.current(),
         FitReport {
             heldout_correlation,
             epoch_loss,
@@ -1999,6 +2043,34 @@ mod tests {
             assert!((rm[[t, 1]] - rp[[t, 1]]).abs() < 1e-5, "frame {t}: {} vs {}", rm[[t, 1]], rp[[t, 1]]);
             assert!((rm[[t, 1]] - rw[[t, 1]]).abs() > 1e-4, "frame {t}: the part changed nothing");
         }
+    }
+
+    #[test]
+    fn assembling_parts_gives_each_cell_its_parts_rates_and_refuses_parts_of_other_shapes() {
+        let one_cell = FitSettings { channels: (2, 1), ..Default::default() };
+        let parts: Vec<Student> = (0..CELLS as u64)
+            .map(|k| Student::init(&one_cell, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(10 + k)))
+            .collect();
+        let movie = naturalistic(LAGS + 4, SIZE, SIZE, 9);
+        let rates_of = |st: &Student| {
+            let m = Model::from_proto(st.proto(), Path::new("s.onnx"), &LoadOptions::default()).unwrap();
+            rates(&m, &movie, &|_| {}).unwrap()
+        };
+        let whole = rates_of(&Student::assemble(&parts).unwrap());
+        for (k, part) in parts.iter().enumerate() {
+            let alone = rates_of(part);
+            for t in LAGS - 1..movie.shape()[0] {
+                assert!((whole[[t, k]] - alone[[t, k]]).abs() < 1e-5, "cell {k}, frame {t}");
+            }
+        }
+        let wider = Student::init(
+            &FitSettings { channels: (3, 1), ..Default::default() },
+            &[1.0; 3],
+            &mut ChaCha8Rng::seed_from_u64(1),
+        );
+        let e = Student::assemble(&[parts[0].clone(), wider, parts[2].clone()]).err().unwrap().to_string();
+        assert!(e.contains("cell 1's part differs"), "{e}");
+        assert!(Student::assemble(&parts[..2]).is_err());
     }
 
     #[test]

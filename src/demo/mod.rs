@@ -5,6 +5,7 @@ pub mod fit;
 pub mod heldout;
 pub mod movies;
 pub mod planted;
+pub mod recipe;
 pub mod recovered;
 pub mod roughness;
 pub mod train;

@@ -108,7 +108,7 @@ fn weighted_mean(
 }
 
 /// The fit's objective: how far a model's rates are from the target rates.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, serde::Deserialize, clap::ValueEnum)]
 #[serde(rename_all = "kebab-case")]
 pub enum Loss {
     /// Squared error, each cell weighted (e.g. by 1 / its variance).
