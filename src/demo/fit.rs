@@ -461,40 +461,62 @@ impl Student {
     }
 
     /// One student with separate cells, cell `k`'s channels and readout row from `parts[k]`, a
-    /// student with shared channels trained on cell `k` alone (see [`super::recipe`]). Every
-    /// part must have the same channels, kernels and hidden nonlinearity.
+    /// student with shared channels trained on cell `k` alone (see [`super::recipe`]). Parts
+    /// may differ in channels, not in kernels or hidden nonlinearity. The result is for
+    /// shipping (its blocks need not be equal, so it is not trained on).
     pub(super) fn assemble(parts: &[Student]) -> Result<Student> {
         let first = parts.first().filter(|_| parts.len() == CELLS).ok_or_else(|| {
             crate::Error::Usage(format!("fit: assembling needs one part per cell ({CELLS}), got {}", parts.len()))
         })?;
-        let shapes = |st: &Student| st.factors.iter().map(|t| t.shape().to_vec()).collect::<Vec<_>>();
-        if let Some(k) = parts.iter().position(|p| shapes(p) != shapes(first) || p.hidden != first.hidden) {
+        let kernels = |st: &Student| (st.factors[1].shape()[2], st.factors[3].shape()[2], st.side, st.hidden);
+        if let Some(k) = parts.iter().position(|p| kernels(p) != kernels(first)) {
             return Err(crate::Error::Usage(format!(
-                "fit: cell {k}'s part differs from cell 0's in channels, kernels or hidden nonlinearity; \
-                 the cells of one model need the same"
+                "fit: cell {k}'s part differs from cell 0's in kernels or hidden nonlinearity; the cells of one \
+                 model need the same"
             )));
         }
-        let groups = (first.factors[1].shape()[0], first.factors[3].shape()[0]);
-        let factors = first
+        let sizes: Vec<(usize, usize)> =
+            parts.iter().map(|p| (p.factors[1].shape()[0], p.factors[3].shape()[0])).collect();
+        let (c1, c2) = sizes.iter().fold((0, 0), |(a, b), &(x, y)| (a + x, b + y));
+        let mut factors: Vec<Tensor> = first
             .factors
             .iter()
             .enumerate()
             .map(|(f, t)| {
                 let mut dims = t.shape().to_vec();
-                if f < 5 {
-                    dims[0] = CELLS * rows_per_cell(f, groups);
-                }
-                if f == 3 || f == 6 {
-                    dims[1] *= CELLS;
+                match f {
+                    0 => dims[0] = RANK * c1,
+                    1 | 2 => dims[0] = c1,
+                    3 => (dims[0], dims[1]) = (c2, c1),
+                    4 => dims[0] = c2,
+                    6 => dims[1] = c2,
+                    _ => {}
                 }
                 Tensor::zeros(IxDyn(&dims))
             })
             .collect();
-        let mut whole = Student { factors, per_cell: Some(groups), positive_readout: false, ..first.without_factors() };
-        for (cell, part) in parts.iter().enumerate() {
-            whole.put_cell(cell, part);
+        let (mut o1, mut o2) = (0, 0);
+        for (cell, (part, &(n1, n2))) in parts.iter().zip(&sizes).enumerate() {
+            let p = &part.factors;
+            factors[0].slice_axis_mut(Axis(0), Slice::from(RANK * o1..RANK * (o1 + n1))).assign(&p[0]);
+            for k in [1, 2] {
+                factors[k].slice_axis_mut(Axis(0), Slice::from(o1..o1 + n1)).assign(&p[k]);
+            }
+            factors[3]
+                .slice_axis_mut(Axis(0), Slice::from(o2..o2 + n2))
+                .slice_axis_mut(Axis(1), Slice::from(o1..o1 + n1))
+                .assign(&p[3]);
+            factors[4].slice_axis_mut(Axis(0), Slice::from(o2..o2 + n2)).assign(&p[4]);
+            for k in [5, 7] {
+                factors[k].index_axis_mut(Axis(0), cell).assign(&p[k].index_axis(Axis(0), cell));
+            }
+            factors[6]
+                .index_axis_mut(Axis(0), cell)
+                .slice_axis_mut(Axis(0), Slice::from(o2..o2 + n2))
+                .assign(&p[6].index_axis(Axis(0), cell));
+            (o1, o2) = (o1 + n1, o2 + n2);
         }
-        Ok(whole)
+        Ok(Student { factors, per_cell: None, positive_readout: false, ..first.without_factors() })
     }
 
     /// The clipping group of entry `flat` of factor `factor`: its cell when cells have their
@@ -2048,8 +2070,12 @@ mod tests {
     #[test]
     fn assembling_parts_gives_each_cell_its_parts_rates_and_refuses_parts_of_other_shapes() {
         let one_cell = FitSettings { channels: (2, 1), ..Default::default() };
-        let parts: Vec<Student> = (0..CELLS as u64)
-            .map(|k| Student::init(&one_cell, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(10 + k)))
+        // Cells may have channels of their own counts.
+        let parts: Vec<Student> = (0..CELLS)
+            .map(|k| {
+                let s = FitSettings { channels: (2 + k, 1 + k % 2), ..one_cell.clone() };
+                Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(10 + k as u64))
+            })
             .collect();
         let movie = naturalistic(LAGS + 4, SIZE, SIZE, 9);
         let rates_of = |st: &Student| {
@@ -2063,12 +2089,9 @@ mod tests {
                 assert!((whole[[t, k]] - alone[[t, k]]).abs() < 1e-5, "cell {k}, frame {t}");
             }
         }
-        let wider = Student::init(
-            &FitSettings { channels: (3, 1), ..Default::default() },
-            &[1.0; 3],
-            &mut ChaCha8Rng::seed_from_u64(1),
-        );
-        let e = Student::assemble(&[parts[0].clone(), wider, parts[2].clone()]).err().unwrap().to_string();
+        let other_kernels = FitSettings { channels: (2, 1), kernels: (13, 15), ..Default::default() };
+        let odd = Student::init(&other_kernels, &[1.0; 3], &mut ChaCha8Rng::seed_from_u64(1));
+        let e = Student::assemble(&[parts[0].clone(), odd, parts[2].clone()]).err().unwrap().to_string();
         assert!(e.contains("cell 1's part differs"), "{e}");
         assert!(Student::assemble(&parts[..2]).is_err());
     }

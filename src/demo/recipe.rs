@@ -48,7 +48,8 @@ pub fn read(path: &Path) -> Result<Recipe> {
     Ok(recipe)
 }
 
-/// What a recipe must hold: one entry per cell, each a fit of its cell alone, all of one shape.
+/// What a recipe must hold: one entry per cell, each a fit of its cell alone, all with the
+/// same kernels and hidden nonlinearity.
 fn check(recipe: &Recipe) -> std::result::Result<(), String> {
     let cells = super::fit::CELLS;
     if recipe.cells.len() != cells {
@@ -73,11 +74,11 @@ fn check(recipe: &Recipe) -> std::result::Result<(), String> {
         if s.only_cell.is_some_and(|c| c != k) {
             return Err(format!("cell {k}: only_cell is {:?}; an entry trains the cell at its place", s.only_cell));
         }
-        if (s.channels, s.kernels, s.hidden) != (first.channels, first.kernels, first.hidden) {
+        if (s.kernels, s.hidden) != (first.kernels, first.hidden) {
             return Err(format!(
-                "cell {k}: channels {:?}, kernels {:?} and hidden {:?} must equal cell 0's ({:?}, {:?}, {:?}), \
-                 since the cells share one model's layers",
-                s.channels, s.kernels, s.hidden, first.channels, first.kernels, first.hidden
+                "cell {k}: kernels {:?} and hidden {:?} must equal cell 0's ({:?}, {:?}), since the cells share \
+                 one model's layers (channel counts may differ)",
+                s.kernels, s.hidden, first.kernels, first.hidden
             ));
         }
     }
@@ -152,7 +153,9 @@ mod tests {
         std::fs::write(&path, r#"{"cells": [{}, {}]}"#).unwrap();
         assert!(read(&path).unwrap_err().to_string().contains("2 cell entries"));
         std::fs::write(&path, r#"{"cells": [{}, {"channels": [4, 2]}, {}]}"#).unwrap();
-        assert!(read(&path).unwrap_err().to_string().contains("cell 1: channels"));
+        assert!(read(&path).is_ok(), "channel counts may differ between cells");
+        std::fs::write(&path, r#"{"cells": [{}, {"hidden": "relu"}, {}]}"#).unwrap();
+        assert!(read(&path).unwrap_err().to_string().contains("cell 1: kernels"));
         std::fs::write(&path, r#"{"cells": [{}, {"restarts": 3, "restart_epochs": 40}, {}]}"#).unwrap();
         assert!(read(&path).unwrap_err().to_string().contains("cell 1: restart_epochs (40)"));
         std::fs::write(&path, r#"{"cells": [{}, {}, {"separate_cells": true}]}"#).unwrap();
