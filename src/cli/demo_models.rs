@@ -198,7 +198,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
     }
     let out = OutputDir::create(&a.out)?;
     let started = std::time::Instant::now();
-    let (model, record, summary) = match &a.recipe {
+    let (model, mut record, summary) = match &a.recipe {
         Some(path) => {
             let recipe = recipe::read(path)?;
             let (model, report) =
@@ -225,7 +225,6 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
             (model, json!({"schema": "sufficit/1", "settings": settings, "report": report}), summary)
         }
     };
-    let mut record = record;
     record["version"] = json!(env!("CARGO_PKG_VERSION"));
     out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&model))?;
     out.write_json("synthetic-sensor-fitted.json", &record)?;

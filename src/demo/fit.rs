@@ -442,21 +442,30 @@ impl Student {
     /// (`channels / CELLS` in each layer, the size of one cell's share) trained on that cell
     /// alone: the finishing phase trains a cell so and puts it in.
     fn put_cell(&mut self, cell: usize, part: &Student) {
-        let Some(groups) = self.per_cell else { return };
+        let Some((g1, g2)) = self.per_cell else { return };
+        self.write_part(cell, part, (cell * g1, cell * g2));
+    }
+
+    /// Write `part` (a student with shared channels trained on cell `cell` alone) as cell
+    /// `cell`'s block: its first-layer channels from `o1`, its second-layer channels from `o2`
+    /// (its own counts), its readout row into row `cell`.
+    fn write_part(&mut self, cell: usize, part: &Student, (o1, o2): (usize, usize)) {
         let p = &part.factors;
-        for k in [0, 1, 2, 4] {
-            self.factors[k].slice_axis_mut(Axis(0), cell_rows(k, groups, cell)).assign(&p[k]);
+        let (n1, n2) = (p[1].shape()[0], p[3].shape()[0]);
+        let f = &mut self.factors;
+        f[0].slice_axis_mut(Axis(0), Slice::from(RANK * o1..RANK * (o1 + n1))).assign(&p[0]);
+        for k in [1, 2] {
+            f[k].slice_axis_mut(Axis(0), Slice::from(o1..o1 + n1)).assign(&p[k]);
         }
-        self.factors[3]
-            .slice_axis_mut(Axis(0), cell_rows(3, groups, cell))
-            .slice_axis_mut(Axis(1), cell_rows(1, groups, cell))
+        f[3].slice_axis_mut(Axis(0), Slice::from(o2..o2 + n2))
+            .slice_axis_mut(Axis(1), Slice::from(o1..o1 + n1))
             .assign(&p[3]);
+        f[4].slice_axis_mut(Axis(0), Slice::from(o2..o2 + n2)).assign(&p[4]);
         for k in [5, 7] {
-            self.factors[k].index_axis_mut(Axis(0), cell).assign(&p[k].index_axis(Axis(0), cell));
+            f[k].index_axis_mut(Axis(0), cell).assign(&p[k].index_axis(Axis(0), cell));
         }
-        self.factors[6]
-            .index_axis_mut(Axis(0), cell)
-            .slice_axis_mut(Axis(0), cell_rows(4, groups, cell))
+        f[6].index_axis_mut(Axis(0), cell)
+            .slice_axis_mut(Axis(0), Slice::from(o2..o2 + n2))
             .assign(&p[6].index_axis(Axis(0), cell));
     }
 
@@ -478,7 +487,7 @@ impl Student {
         let sizes: Vec<(usize, usize)> =
             parts.iter().map(|p| (p.factors[1].shape()[0], p.factors[3].shape()[0])).collect();
         let (c1, c2) = sizes.iter().fold((0, 0), |(a, b), &(x, y)| (a + x, b + y));
-        let mut factors: Vec<Tensor> = first
+        let factors = first
             .factors
             .iter()
             .enumerate()
@@ -495,28 +504,13 @@ impl Student {
                 Tensor::zeros(IxDyn(&dims))
             })
             .collect();
-        let (mut o1, mut o2) = (0, 0);
+        let mut whole = Student { factors, per_cell: None, positive_readout: false, ..first.without_factors() };
+        let mut offsets = (0, 0);
         for (cell, (part, &(n1, n2))) in parts.iter().zip(&sizes).enumerate() {
-            let p = &part.factors;
-            factors[0].slice_axis_mut(Axis(0), Slice::from(RANK * o1..RANK * (o1 + n1))).assign(&p[0]);
-            for k in [1, 2] {
-                factors[k].slice_axis_mut(Axis(0), Slice::from(o1..o1 + n1)).assign(&p[k]);
-            }
-            factors[3]
-                .slice_axis_mut(Axis(0), Slice::from(o2..o2 + n2))
-                .slice_axis_mut(Axis(1), Slice::from(o1..o1 + n1))
-                .assign(&p[3]);
-            factors[4].slice_axis_mut(Axis(0), Slice::from(o2..o2 + n2)).assign(&p[4]);
-            for k in [5, 7] {
-                factors[k].index_axis_mut(Axis(0), cell).assign(&p[k].index_axis(Axis(0), cell));
-            }
-            factors[6]
-                .index_axis_mut(Axis(0), cell)
-                .slice_axis_mut(Axis(0), Slice::from(o2..o2 + n2))
-                .assign(&p[6].index_axis(Axis(0), cell));
-            (o1, o2) = (o1 + n1, o2 + n2);
+            whole.write_part(cell, part, offsets);
+            offsets = (offsets.0 + n1, offsets.1 + n2);
         }
-        Ok(Student { factors, per_cell: None, positive_readout: false, ..first.without_factors() })
+        Ok(whole)
     }
 
     /// The clipping group of entry `flat` of factor `factor`: its cell when cells have their
@@ -832,14 +826,6 @@ fn rows_per_cell(factor: usize, (g1, g2): (usize, usize)) -> usize {
         3 | 4 => g2,
         _ => 1,
     }
-}
-
-/// The rows of factor `factor` that cell `cell` owns (see [`rows_per_cell`]); with factor 1,
-/// also its first-layer channels, and with factor 4 its second-layer channels, wherever those
-/// index an axis (conv2's inputs, the readout's features).
-fn cell_rows(factor: usize, groups: (usize, usize), cell: usize) -> Slice {
-    let n = rows_per_cell(factor, groups);
-    Slice::from(cell * n..(cell + 1) * n)
 }
 
 /// The least weight of a positive readout (see [`Student::project`]). Not zero: a unit read with
