@@ -1,6 +1,9 @@
 //! Engine benchmark: forward + backward (gradients w.r.t. the input and the first hidden layer)
 //! on the reference-size model, achieved GFLOP/s against this machine's measured f32 GEMM peak,
-//! peak memory, and the engine's forward against tract's on the same batch.
+//! peak memory, and the engine's forward against tract's on the same batch. Then the same batch
+//! through the fitted demo draft, whose first layer has rank-2 kernels and whose second layer is
+//! block diagonal (one block per cell): the engine runs those structures as such
+//! (`conv_low_rank`, `conv_packed`), tract runs the full kernels.
 //!
 //!     cargo bench --bench engine          # figures go to docs/performance.md by hand
 
@@ -138,5 +141,26 @@ fn main() {
     );
     println!("peak memory after engine runs       {engine_peak:.0} MiB");
     println!("peak memory after tract runs        {tract_peak:.0} MiB");
+    structured(&x);
     let _ = std::fs::remove_dir_all(&dir);
+}
+
+/// Forward of the fitted demo draft (18 rank-2 kernels of 40 lags x 15 x 15, then 3 diagonal
+/// blocks of 4 x 6 channels) in the engine and in tract.
+fn structured(x: &ArrayD<f32>) {
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("models/synthetic-sensor-fitted-draft.onnx");
+    let model = Model::load(&path, &LoadOptions::default()).expect("load the fitted draft");
+    let engine = median(&samples(REPEATS, || {
+        model.graph.forward(x.clone(), &[]).expect("forward");
+    }));
+    let fast = FastPath::new(&model).expect("tract plan");
+    let tract = median(&samples(REPEATS, || {
+        fast.run(x.clone()).expect("tract forward");
+    }));
+    println!(
+        "fitted draft forward: engine {:.3} s, tract {:.3} s ({:.2}x)",
+        engine.as_secs_f64(),
+        tract.as_secs_f64(),
+        engine.as_secs_f64() / tract.as_secs_f64()
+    );
 }

@@ -2,6 +2,7 @@
 //! auto_pad (ONNX Conv-11). Runs as strided GEMMs over shifted views of the padded input (see
 //! `conv_plan`), samples in parallel; backward gives input, weight and bias gradients the same way.
 
+use super::conv_low_rank::LowRank;
 use super::conv_packed::Packed;
 use super::conv_plan::{Geometry, WindowAttrs};
 use super::{BackwardArgs, BuildCtx, Built, Footprint, Op, OpResult};
@@ -9,12 +10,19 @@ use crate::engine::gemm::{matmul_acc, Mat, MatMut};
 use crate::Tensor;
 use ndarray::{ArrayD, Axis, IxDyn};
 use rayon::prelude::*;
+use std::sync::{Arc, Mutex};
+
+/// Weights last seen by a [`Conv`] and their factorisation (`None`: not low-rank).
+type FactorCache = Option<(Vec<f32>, Option<Arc<LowRank>>)>;
 
 /// A convolution layer.
 #[derive(Debug)]
 pub struct Conv {
     attrs: WindowAttrs,
     group: usize,
+    /// The last weights seen and their low-rank factorisation, if any: factorising takes a
+    /// singular value decomposition per output channel, so it is done once per weights.
+    low_rank: Mutex<FactorCache>,
 }
 
 /// Sizes of one call, checked against each other.
@@ -76,6 +84,22 @@ impl Conv {
             geo,
         })
     }
+
+    /// The low-rank factorisation of `w` (see [`LowRank`]), cached for the last weights seen.
+    fn low_rank(&self, d: &Dims, w: &[f32]) -> Option<Arc<LowRank>> {
+        if self.group != 1 || !Packed::applies(d) {
+            return None;
+        }
+        let mut cache = self.low_rank.lock().unwrap_or_else(|poisoned| poisoned.into_inner());
+        match cache.as_ref() {
+            Some((seen, low)) if seen.as_slice() == w => low.clone(),
+            _ => {
+                let low = LowRank::find(d, w).map(Arc::new);
+                *cache = Some((w.to_vec(), low.clone()));
+                low
+            }
+        }
+    }
 }
 
 impl Op for Conv {
@@ -93,16 +117,19 @@ impl Op for Conv {
         let w = w.as_standard_layout();
         let (xs, ws) = (x.as_slice().ok_or("input layout")?, w.as_slice().ok_or("weight layout")?);
         let (ilen, olen) = (d.geo.input.iter().product::<usize>(), d.geo.valid.len());
-        let packed = Packed::applies(&d).then(|| Packed::for_forward(&d, ws));
+        let low_rank = self.low_rank(&d, ws);
+        let packed = (low_rank.is_none() && Packed::applies(&d)).then(|| Packed::for_forward(&d, ws));
         let mut y = vec![0f32; d.n * d.cout * olen];
         y.par_chunks_mut(d.cout * olen).enumerate().for_each(|(s, ys)| {
             let xp = d.geo.pad(&xs[s * d.cin * ilen..(s + 1) * d.cin * ilen], d.cin, 0.0);
             let (plen, vlen) = (d.geo.padded_len(), d.geo.virtual_len);
             let mut yv = vec![0f32; d.cout * vlen];
-            if let Some(p) = &packed {
+            if let Some(l) = &low_rank {
+                l.forward(&d, &xp, &mut yv);
+            } else if let Some(p) = &packed {
                 p.forward(&d, &xp, &mut yv);
             }
-            for g in (0..self.group).filter(|_| packed.is_none()) {
+            for g in (0..self.group).filter(|_| packed.is_none() && low_rank.is_none()) {
                 for (kidx, &koff) in d.geo.kernel_offsets.iter().enumerate() {
                     for seg in &d.geo.segments {
                         matmul_acc(
@@ -252,7 +279,7 @@ pub fn build(ctx: &BuildCtx) -> OpResult<Built> {
         .filter(|&g| g > 0)
         .ok_or("attribute 'group' must be a positive integer")?;
     let n = if ctx.has_input(2) { 3 } else { 2 };
-    Ok(Built::first(Conv { attrs, group }, n))
+    Ok(Built::first(Conv { attrs, group, low_rank: Mutex::new(None) }, n))
 }
 
 #[cfg(test)]
@@ -284,6 +311,39 @@ mod tests {
             true,
         );
         case(&[("auto_pad", Attr::S("SAME_LOWER"))], &[1, 2, 6, 6], &[2, 2, 2, 2], true);
+    }
+
+    #[test]
+    fn block_diagonal_weights_run_by_blocks_and_match_tract_and_finite_differences() {
+        // Output channels 0-1 read inputs 0-1, 2-4 read 2-4 (channel 3 only through 2-4's
+        // kernels), 5 reads 5: the packed path splits them, tract runs them whole. The weight
+        // gradient of the zero kernels is checked too.
+        let (x, w) = ([2, 6, 7, 6], [6usize, 6, 3, 2]);
+        let mut init = random_init("w", &w, 5);
+        let block = |c: usize| [0, 0, 1, 1, 1, 2][c];
+        for (i, v) in init.float_data.iter_mut().enumerate() {
+            let (co, ci) = (i / (6 * 6), (i / 6) % 6);
+            if block(co) != block(ci) {
+                *v = 0.0;
+            }
+        }
+        check_graph(node_io("Conv", &["x", "w"], &[]), &[&x], vec![init]);
+    }
+
+    #[test]
+    fn low_rank_kernels_run_factorised_and_match_tract_and_finite_differences() {
+        // Each output channel's [12 channels, 5 x 5] kernel is a sum of two products of a
+        // channel profile and a spatial map (as a space-time separable first layer exported with
+        // full kernels), so the forward runs as those products (see conv_low_rank).
+        let (x, w) = ([2, 12, 9, 8], [3usize, 12, 5, 5]);
+        let profiles = crate::engine::ops::testing::random_tensor(&[3, 2, 12], 7, false);
+        let maps = crate::engine::ops::testing::random_tensor(&[3, 2, 25], 8, false);
+        let mut init = random_init("w", &w, 5);
+        for (i, v) in init.float_data.iter_mut().enumerate() {
+            let (co, ci, k) = (i / 300, (i / 25) % 12, i % 25);
+            *v = (0..2).map(|r| profiles[[co, r, ci]] * maps[[co, r, k]]).sum();
+        }
+        check_graph(node_io("Conv", &["x", "w"], &[("pads", Attr::Is(vec![1, 2, 0, 1]))]), &[&x], vec![init]);
     }
 
     #[test]

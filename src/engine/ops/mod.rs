@@ -11,6 +11,7 @@ pub mod broadcast;
 mod concat;
 mod constant;
 mod conv;
+mod conv_low_rank;
 mod conv_packed;
 mod conv_plan;
 mod elementwise;

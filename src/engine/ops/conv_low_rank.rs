@@ -1,0 +1,129 @@
+//! Convolutions whose kernels are sums of a few products of a channel profile and a spatial map
+//! (low-rank kernels), run as those products: for each term, the input channels are first mixed
+//! by the profile (one GEMM for all terms) and the mixture is then convolved with the term's
+//! map alone. Encoding models are often trained this way (space-time separable first layers,
+//! lags as channels) and exported with full kernels; a 40-lag, 15 x 15 kernel of rank 2 then
+//! costs 2 x (40 + 225) multiplications per output instead of 40 x 225.
+//!
+//! The rank of each output channel's kernel (its `[channels, kernel volume]` matrix) comes from
+//! its singular values: the fewest terms whose dropped remainder is below [`TOLERANCE`] of the
+//! kernel's norm, so the products equal the kernel to float precision.
+
+use super::conv::Dims;
+use crate::engine::gemm::{matmul_acc, Mat, MatMut};
+use nalgebra::DMatrix;
+
+/// Largest relative Frobenius norm of a kernel's dropped singular values.
+const TOLERANCE: f64 = 1e-6;
+
+/// The factorised path runs only when it needs at most this share of the full kernel's
+/// multiplications (below that the two passes' memory traffic eats the gain).
+const WORTH: f64 = 0.25;
+
+/// The terms of every output channel's kernel.
+#[derive(Debug)]
+pub(super) struct LowRank {
+    /// Output channel of each term.
+    owner: Vec<usize>,
+    /// Channel profile of each term, `[terms, cin]`.
+    profiles: Vec<f32>,
+    /// Spatial map of each term, `[terms, kvol]` (singular value folded in).
+    maps: Vec<f32>,
+}
+
+impl LowRank {
+    /// The factorisation of single-group weights, when it is exact to float precision and
+    /// saves most of the work; `None` otherwise.
+    pub fn find(d: &Dims, w: &[f32]) -> Option<Self> {
+        if d.cig != d.cin {
+            return None;
+        }
+        let (cin, kvol) = (d.cin, d.kvol);
+        let mut low = LowRank { owner: Vec::new(), profiles: Vec::new(), maps: Vec::new() };
+        for co in 0..d.cout {
+            let kernel = &w[co * cin * kvol..(co + 1) * cin * kvol];
+            let m = DMatrix::from_fn(cin, kvol, |c, k| kernel[c * kvol + k] as f64);
+            let svd = m.svd(true, true);
+            let (u, vt) = (svd.u?, svd.v_t?);
+            let mut order: Vec<usize> = (0..svd.singular_values.len()).collect();
+            order.sort_by(|&a, &b| svd.singular_values[b].total_cmp(&svd.singular_values[a]));
+            let energy: f64 = svd.singular_values.iter().map(|s| s * s).sum();
+            let mut dropped = energy;
+            for &i in &order {
+                if dropped <= (TOLERANCE * TOLERANCE) * energy {
+                    break;
+                }
+                let s = svd.singular_values[i];
+                dropped -= s * s;
+                low.owner.push(co);
+                low.profiles.extend((0..cin).map(|c| u[(c, i)] as f32));
+                low.maps.extend((0..kvol).map(|k| (s * vt[(i, k)]) as f32));
+            }
+        }
+        let terms = low.owner.len() as f64;
+        let full = (d.cout * cin * kvol) as f64;
+        (terms * (cin + kvol) as f64 <= WORTH * full).then_some(low)
+    }
+
+    /// `yv += W * x` for one sample: `xp` is the padded input, `yv` the virtual output (stride 1,
+    /// one segment: see `Packed::applies`).
+    pub fn forward(&self, d: &Dims, xp: &[f32], yv: &mut [f32]) {
+        let (vlen, plen) = (d.geo.virtual_len, d.geo.padded_len());
+        let terms = self.owner.len();
+        let mut mixed = vec![0f32; terms * plen];
+        matmul_acc(
+            terms,
+            plen,
+            d.cin,
+            MatMut { data: &mut mixed, offset: 0, rs: plen, cs: 1 },
+            Mat { data: &self.profiles, offset: 0, rs: d.cin, cs: 1 },
+            Mat { data: xp, offset: 0, rs: plen, cs: 1 },
+        );
+        for (t, &co) in self.owner.iter().enumerate() {
+            let out = &mut yv[co * vlen..(co + 1) * vlen];
+            let m = &mixed[t * plen..(t + 1) * plen];
+            for (k, &koff) in d.geo.kernel_offsets.iter().enumerate() {
+                let s = self.maps[t * d.kvol + k];
+                out.iter_mut().zip(&m[koff..koff + vlen]).for_each(|(y, v)| *y += s * v);
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::LowRank;
+    use crate::engine::ops::conv::Dims;
+    use crate::engine::ops::conv_plan::{Geometry, WindowAttrs};
+    use crate::engine::ops::testing::random_tensor;
+
+    fn dims(cout: usize, cin: usize) -> Dims {
+        let attrs = WindowAttrs {
+            kernel: vec![5, 5],
+            strides: vec![1, 1],
+            dilations: vec![1, 1],
+            auto_pad: "NOTSET".into(),
+            pads: vec![0; 4],
+            ceil_mode: false,
+        };
+        let geo = Geometry::new(&attrs, &[9, 9]).expect("geometry");
+        Dims { n: 1, cin, cout, cig: cin, cog: cout, kvol: 25, kernel_last: 5, dilation_last: 1, geo }
+    }
+
+    /// Kernels `[cout, 12, 25]`, each the sum of `rank` products.
+    fn kernels(cout: usize, rank: usize) -> Vec<f32> {
+        let (p, m) = (random_tensor(&[cout, rank, 12], 1, false), random_tensor(&[cout, rank, 25], 2, false));
+        (0..cout * 300)
+            .map(|i| (0..rank).map(|r| p[[i / 300, r, (i / 25) % 12]] * m[[i / 300, r, i % 25]]).sum())
+            .collect()
+    }
+
+    #[test]
+    fn the_rank_of_each_kernel_is_found_and_full_rank_kernels_are_left_alone() {
+        let low = LowRank::find(&dims(3, 12), &kernels(3, 2)).expect("rank-2 kernels factorise");
+        assert_eq!(low.owner, vec![0, 0, 1, 1, 2, 2]);
+        // Rank 3 needs 3 x (12 + 25) = 111 multiplications per output against 300 x 0.25: not worth it.
+        assert!(LowRank::find(&dims(3, 12), &kernels(3, 3)).is_none());
+        assert!(LowRank::find(&dims(2, 12), &random_tensor(&[600], 3, false).into_raw_vec_and_offset().0).is_none());
+    }
+}
