@@ -16,6 +16,12 @@ use nalgebra::DMatrix;
 /// Largest relative Frobenius norm of a kernel's dropped singular values.
 const TOLERANCE: f64 = 1e-6;
 
+/// Most terms a kernel may have. A kernel with a long spectrum (many small singular values) runs
+/// in full: each term adds its own rounding, and a circuit with sharp thresholds can turn that
+/// into differences far above float precision (the planted direction-selective pathways, whose
+/// singular values fall off slowly, moved a reduced circuit's response by 2e-5 of its size).
+const MAX_RANK: usize = 4;
+
 /// The factorised path runs only when it needs at most this share of the full kernel's
 /// multiplications (below that the two passes' memory traffic eats the gain).
 const WORTH: f64 = 0.25;
@@ -52,6 +58,9 @@ impl LowRank {
             for &i in &order {
                 if dropped <= (TOLERANCE * TOLERANCE) * energy {
                     break;
+                }
+                if low.owner.iter().filter(|&&o| o == co).count() == MAX_RANK {
+                    return None;
                 }
                 let s = svd.singular_values[i];
                 dropped -= s * s;
@@ -98,16 +107,20 @@ mod tests {
     use crate::engine::ops::testing::random_tensor;
 
     fn dims(cout: usize, cin: usize) -> Dims {
+        dims_k(cout, cin, 5)
+    }
+
+    fn dims_k(cout: usize, cin: usize, k: usize) -> Dims {
         let attrs = WindowAttrs {
-            kernel: vec![5, 5],
+            kernel: vec![k, k],
             strides: vec![1, 1],
             dilations: vec![1, 1],
             auto_pad: "NOTSET".into(),
             pads: vec![0; 4],
             ceil_mode: false,
         };
-        let geo = Geometry::new(&attrs, &[9, 9]).expect("geometry");
-        Dims { n: 1, cin, cout, cig: cin, cog: cout, kvol: 25, kernel_last: 5, dilation_last: 1, geo }
+        let geo = Geometry::new(&attrs, &[k + 4, k + 4]).expect("geometry");
+        Dims { n: 1, cin, cout, cig: cin, cog: cout, kvol: k * k, kernel_last: k, dilation_last: 1, geo }
     }
 
     /// Kernels `[cout, 12, 25]`, each the sum of `rank` products.
@@ -125,5 +138,13 @@ mod tests {
         // Rank 3 needs 3 x (12 + 25) = 111 multiplications per output against 300 x 0.25: not worth it.
         assert!(LowRank::find(&dims(3, 12), &kernels(3, 3)).is_none());
         assert!(LowRank::find(&dims(2, 12), &random_tensor(&[600], 3, false).into_raw_vec_and_offset().0).is_none());
+        // 40 channels x 9 x 9: rank 4 factorises; rank 5 would still save work (5 x 121 against
+        // 3240 x 0.25) but has more terms than MAX_RANK allows.
+        let of_rank = |rank: usize| -> Vec<f32> {
+            let (p, m) = (random_tensor(&[rank, 40], 4, false), random_tensor(&[rank, 81], 5, false));
+            (0..40 * 81).map(|i| (0..rank).map(|r| p[[r, i / 81]] * m[[r, i % 81]]).sum()).collect()
+        };
+        assert_eq!(LowRank::find(&dims_k(1, 40, 9), &of_rank(4)).map(|l| l.owner.len()), Some(4));
+        assert!(LowRank::find(&dims_k(1, 40, 9), &of_rank(5)).is_none());
     }
 }
