@@ -87,7 +87,8 @@ impl Conv {
 
     /// The low-rank factorisation of `w` (see [`LowRank`]), cached for the last weights seen.
     fn low_rank(&self, d: &Dims, w: &[f32]) -> Option<Arc<LowRank>> {
-        if self.group != 1 || !Packed::applies(d) {
+        // Single-group weights only: `LowRank::find` refuses the others.
+        if !Packed::applies(d) {
             return None;
         }
         let mut cache = self.low_rank.lock().unwrap_or_else(|poisoned| poisoned.into_inner());

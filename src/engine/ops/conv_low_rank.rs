@@ -55,11 +55,11 @@ impl LowRank {
             order.sort_by(|&a, &b| svd.singular_values[b].total_cmp(&svd.singular_values[a]));
             let energy: f64 = svd.singular_values.iter().map(|s| s * s).sum();
             let mut dropped = energy;
-            for &i in &order {
+            for (kept, &i) in order.iter().enumerate() {
                 if dropped <= (TOLERANCE * TOLERANCE) * energy {
                     break;
                 }
-                if low.owner.iter().filter(|&&o| o == co).count() == MAX_RANK {
+                if kept == MAX_RANK {
                     return None;
                 }
                 let s = svd.singular_values[i];

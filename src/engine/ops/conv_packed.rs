@@ -201,13 +201,13 @@ fn diagonal_blocks(cout: usize, cin: usize, kvol: usize, w: &[f32]) -> Option<Ve
     let mut blocks: Vec<(usize, Range<usize>)> = Vec::new();
     for co in 0..cout {
         let Some((lo, hi)) = reads(co) else { continue };
+        // Where the input range of the block before the current one ends.
+        let before = blocks.len().checked_sub(2).map_or(0, |b| blocks[b].1.end);
         match blocks.last_mut() {
             Some((_, inp)) if lo < inp.end => {
-                let before = blocks.len().checked_sub(2).map_or(0, |b| blocks[b].1.end);
                 if lo < before {
                     return None;
                 }
-                let inp = &mut blocks.last_mut()?.1;
                 *inp = inp.start.min(lo)..inp.end.max(hi);
             }
             _ => blocks.push((if blocks.is_empty() { 0 } else { co }, lo..hi)),
