@@ -65,3 +65,16 @@ fn demo_runs_every_stage_for_every_cell_and_says_where_it_wrote() {
     assert!(html.contains("id=\"m1-recovered\"") && html.contains("Recovered vs planted"));
     assert!(text.contains("closest to the planted resonant pathway"), "{text}");
 }
+
+#[test]
+fn demo_on_a_model_file_that_is_not_there_names_it_and_writes_nothing() {
+    // The maintainers' `--model` (a candidate fit instead of the embedded model) is read before
+    // anything is written.
+    let d = tempfile::tempdir().unwrap();
+    let out = d.path().join("demo");
+    let missing = d.path().join("candidate.onnx");
+    let (ok, text) = sufficit(&["demo", "--model", s(&missing), "--out", s(&out), "--quiet"]);
+    assert!(!ok, "{text}");
+    assert!(text.contains("candidate.onnx"), "the error must name the file: {text}");
+    assert!(!out.exists(), "nothing may be written when the model cannot be read");
+}

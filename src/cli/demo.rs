@@ -40,6 +40,11 @@ pub struct DemoArgs {
     /// Output folder.
     #[arg(long, default_value = "sufficit-demo")]
     pub out: std::path::PathBuf,
+    /// Maintainers: run on this ONNX file (another fit of the synthetic sensor, e.g. a candidate
+    /// from `demo-models --fit`) instead of the embedded model, to see its recovery before
+    /// shipping it.
+    #[arg(long, hide = true)]
+    pub model: Option<std::path::PathBuf>,
     #[command(flatten)]
     pub common: Common,
 }
@@ -83,8 +88,12 @@ fn ground_truth(dir: &Path, model: &Path, seed: u64) -> Result<Vec<Recovery>> {
 /// Run the demo.
 pub fn run(a: &DemoArgs) -> Result<()> {
     let t0 = Instant::now();
+    let bytes = match &a.model {
+        Some(path) => std::fs::read(path).map_err(|e| crate::Error::io("read the model", path, e))?,
+        None => MODEL.to_vec(),
+    };
     let out = OutputDir::create(&a.out)?;
-    out.write_bytes("model.onnx", MODEL)?;
+    out.write_bytes("model.onnx", &bytes)?;
     let model = a.out.join("model.onnx");
     let quiet = |mut v: Vec<String>| {
         v.extend(["--quiet".to_string(), "--seed".to_string(), a.common.seed.to_string()]);
@@ -138,14 +147,18 @@ pub fn run(a: &DemoArgs) -> Result<()> {
     out.write_json("run.json", &record)?;
     for r in &truth {
         println!(
-            "cell {}: top first-layer unit {}:{} is closest to the planted {} pathway (filter r = {:.2}, sign {}){}",
+            "cell {}: top first-layer unit {}:{} is closest to the planted {} pathway (filter r = {:.2}, sign {}){}; \
+             all {} kept first-layer unit(s) together: r = {:.2} (chance {:.2})",
             r.cell,
             r.unit_layer,
             r.unit_channel,
             crate::demo::planted::PATHWAYS[r.matched_channel],
             r.filter_correlation,
             if r.sign_matches { "right" } else { "wrong" },
-            if r.recovered { "" } else { ": not recovered" }
+            if r.recovered { "" } else { ": not recovered" },
+            r.kept_first_layer_units,
+            r.planted.iter().find(|p| p.channel == r.matched_channel).map_or(f64::NAN, |p| p.span_correlation),
+            r.span_chance
         );
     }
     println!(

@@ -4,11 +4,16 @@
 //! resembles most: the correlation of the two temporal filters (each the rank-one part of its
 //! spatiotemporal kernel, signed so the spatial map's peak is positive, so an OFF filter is the
 //! negative of an ON one) and whether the unit's sign on the cell is the planted sign.
+//!
+//! A fitted model may spread one pathway over several units, so each planted pathway is also
+//! compared with the best least-squares combination of all the kept first-layer units' temporal
+//! filters (`span_correlation`), next to the value a random filter would reach (`span_chance`).
 
 use super::planted::{kernel, PATHWAYS};
 use crate::reduction::filters::separate;
 use crate::response::measure::correlation;
 use crate::{Error, Result};
+use nalgebra::{DMatrix, DVector};
 use serde::Serialize;
 use serde_json::Value;
 use std::path::Path;
@@ -40,6 +45,10 @@ pub struct PlantedPathway {
     pub sign: &'static str,
     /// Correlation of its temporal filter with the recovered unit's.
     pub filter_correlation: f64,
+    /// Correlation of its temporal filter with the best least-squares combination (plus a
+    /// constant) of the temporal filters of all the subcircuit's first-layer units: how well the
+    /// kept units together carry it when no single one does.
+    pub span_correlation: f64,
 }
 
 /// One cell's comparison.
@@ -69,11 +78,40 @@ pub struct Recovery {
     pub sign_matches: bool,
     /// `filter_correlation >= RECOVERED_R` and the sign matches.
     pub recovered: bool,
+    /// First-layer units kept in the subcircuit (the combination's size).
+    pub kept_first_layer_units: usize,
+    /// The span correlation a filter unrelated to the units would reach by chance:
+    /// sqrt(k / (lags - 1)) for k units (a random direction's squared cosine with a fixed
+    /// k-dimensional subspace of R^n averages k / n; centring removes one dimension).
+    pub span_chance: f64,
 }
 
 /// The rank-one temporal filter of planted pathway `p` (same normalisation as the reduction's).
 pub fn planted_temporal(p: usize) -> Vec<f32> {
     separate(kernel(p)).temporal
+}
+
+/// Correlation of `target` with its least-squares fit by `filters` plus a constant: the norm of
+/// the centred target's projection on the span of the centred filters over the centred
+/// target's norm. NaN when the target is constant.
+pub fn span_correlation(filters: &[Vec<f32>], target: &[f32]) -> f64 {
+    let centred = |v: &[f32]| {
+        let mean = v.iter().map(|&x| x as f64).sum::<f64>() / v.len().max(1) as f64;
+        v.iter().map(|&x| x as f64 - mean).collect::<Vec<f64>>()
+    };
+    let n = target.len();
+    let t = DVector::from_vec(centred(target));
+    let columns: Vec<DVector<f64>> =
+        filters.iter().filter(|f| f.len() == n).map(|f| DVector::from_vec(centred(f))).collect();
+    if columns.is_empty() {
+        return 0.0;
+    }
+    let a = DMatrix::from_columns(&columns);
+    let fit = match a.clone().svd(true, true).solve(&t, 1e-9) {
+        Ok(x) => a * x,
+        Err(_) => return f64::NAN,
+    };
+    fit.norm() / t.norm()
 }
 
 fn sign_word(excitatory: bool) -> &'static str {
@@ -90,20 +128,25 @@ pub fn compare(cell: usize, subcircuit: &Value, path: &Path) -> Result<Recovery>
     let planted = PLANTED.get(cell).ok_or_else(|| Error::input(path, format!("cell {cell} is not a demo cell")))?;
     let units = subcircuit["units"].as_array().ok_or_else(|| Error::input(path, "has no 'units' list"))?;
     // First-layer units carry their convolution kernel.
-    let top = units
+    let first: Vec<&Value> = units.iter().filter(|u| u["kernel"].is_object()).collect();
+    let top = first
         .iter()
-        .filter(|u| u["kernel"].is_object())
+        .copied()
         .max_by(|a, b| {
             let c = |u: &Value| u["conductance"].as_f64().unwrap_or(0.0).abs();
             c(a).total_cmp(&c(b))
         })
         .ok_or_else(|| Error::input(path, "keeps no first-layer unit: nothing to compare with the planted pathways"))?;
-    let temporal: Vec<f32> = top["kernel"]["temporal"]
-        .as_array()
-        .ok_or_else(|| Error::input(path, "a unit's kernel has no temporal filter"))?
-        .iter()
-        .map(|v| v.as_f64().unwrap_or(f64::NAN) as f32)
-        .collect();
+    let temporal_of = |u: &Value| -> Result<Vec<f32>> {
+        Ok(u["kernel"]["temporal"]
+            .as_array()
+            .ok_or_else(|| Error::input(path, "a unit's kernel has no temporal filter"))?
+            .iter()
+            .map(|v| v.as_f64().unwrap_or(f64::NAN) as f32)
+            .collect())
+    };
+    let temporal = temporal_of(top)?;
+    let kept: Vec<Vec<f32>> = first.iter().map(|u| temporal_of(u)).collect::<Result<_>>()?;
     let as64 = |v: &[f32]| v.iter().map(|&x| x as f64).collect::<Vec<_>>();
     let mut filters: Vec<Vec<f32>> = planted.iter().map(|&(p, _)| planted_temporal(p)).collect();
     let pathways: Vec<PlantedPathway> = planted
@@ -114,6 +157,7 @@ pub fn compare(cell: usize, subcircuit: &Value, path: &Path) -> Result<Recovery>
             name: PATHWAYS[p],
             sign: sign_word(excitatory),
             filter_correlation: correlation(&as64(filter), &as64(&temporal)),
+            span_correlation: span_correlation(&kept, filter),
         })
         .collect();
     let best = (0..pathways.len())
@@ -121,6 +165,7 @@ pub fn compare(cell: usize, subcircuit: &Value, path: &Path) -> Result<Recovery>
         .ok_or_else(|| Error::input(path, "no planted pathway"))?;
     let (matched_channel, matched_sign, filter_correlation) =
         (pathways[best].channel, pathways[best].sign, pathways[best].filter_correlation);
+    let span_chance = (kept.len() as f64 / (temporal.len().max(2) - 1) as f64).sqrt().min(1.0);
     let unit_sign = top["sign"].as_str().unwrap_or("").to_string();
     let sign_matches = unit_sign == matched_sign;
     Ok(Recovery {
@@ -136,6 +181,8 @@ pub fn compare(cell: usize, subcircuit: &Value, path: &Path) -> Result<Recovery>
         sign_matches,
         recovered: filter_correlation >= RECOVERED_R && sign_matches,
         planted: pathways,
+        kept_first_layer_units: kept.len(),
+        span_chance,
     })
 }
 
@@ -173,6 +220,37 @@ mod tests {
             compare(2, &json!({"units": [unit(1, 0.5, "excitatory", planted_temporal(0))]}), Path::new("s")).unwrap();
         assert!(!excitatory.sign_matches && !excitatory.recovered);
         assert!((on.planted[1].filter_correlation + 1.0).abs() < 1e-6);
+    }
+
+    #[test]
+    fn a_pathway_spread_over_two_units_is_carried_by_their_span() {
+        // The rightward filter split into two halves that are each poorly correlated with it:
+        // the top unit misses it, the two together carry it exactly.
+        let full = planted_temporal(4);
+        let peak = full.iter().enumerate().max_by(|a, b| a.1.total_cmp(b.1)).map(|(i, _)| i).unwrap();
+        let early: Vec<f32> = full.iter().enumerate().map(|(i, &v)| if i < peak { v } else { 0.0 }).collect();
+        let late: Vec<f32> = full.iter().enumerate().map(|(i, &v)| if i >= peak { v } else { 0.0 }).collect();
+        let sub = json!({"units": [unit(1, 0.9, "excitatory", early), unit(2, 0.5, "excitatory", late)]});
+        let r = compare(1, &sub, Path::new("s")).unwrap();
+        assert!(r.filter_correlation < 0.95, "{}", r.filter_correlation);
+        assert!((r.planted[0].span_correlation - 1.0).abs() < 1e-6, "{}", r.planted[0].span_correlation);
+        assert_eq!(r.kept_first_layer_units, 2);
+        assert!((r.span_chance - (2.0f64 / 39.0).sqrt()).abs() < 1e-12);
+    }
+
+    #[test]
+    fn the_span_of_one_filter_is_its_absolute_correlation() {
+        // With one filter the least-squares fit is the filter scaled, so the span correlation is
+        // |r| (the fit may flip the sign).
+        let a: Vec<f32> = (0..40).map(|i| ((i as f32) * 0.3).sin()).collect();
+        let b: Vec<f32> = (0..40).map(|i| ((i as f32) * 0.3).sin() + 0.5 * ((i as f32) * 1.7).cos()).collect();
+        let r = correlation(
+            &a.iter().map(|&x| x as f64).collect::<Vec<_>>(),
+            &b.iter().map(|&x| x as f64).collect::<Vec<_>>(),
+        );
+        let neg: Vec<f32> = a.iter().map(|x| -x).collect();
+        assert!((span_correlation(&[neg], &b) - r.abs()).abs() < 1e-9);
+        assert!(span_correlation(&[a], &[1.0; 40]).is_nan(), "a constant target has no shape");
     }
 
     #[test]

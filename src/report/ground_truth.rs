@@ -85,9 +85,22 @@ pub fn section(id: &str, folder: &Folder) -> Result<Vec<Block>> {
              unit ranked first by conductance in the cell's subcircuit is compared with the cell's planted \
              pathways: the correlation of their temporal filters (rank-one parts of the kernels, signed so the \
              spatial peak is positive) and whether the unit's sign on the cell is the planted one. A correlation \
-             of at least {} with the right sign counts as recovered.",
+             of at least {} with the right sign counts as recovered. A fitted model may spread one pathway \
+             over several units: \"all kept units\" is the correlation of the planted filter with the best \
+             least-squares combination of the temporal filters of all first-layer units in the subcircuit; a \
+             filter unrelated to them would reach about sqrt(k / (lags - 1)) for k units ({}).",
             doc["planted"].as_str().unwrap_or("the planted model"),
-            num(&doc["threshold"])
+            num(&doc["threshold"]),
+            cells
+                .iter()
+                .map(|c| format!(
+                    "cell {}: {} units, {}",
+                    num(&c["cell"]),
+                    num(&c["kept_first_layer_units"]),
+                    num(&c["span_chance"])
+                ))
+                .collect::<Vec<_>>()
+                .join("; ")
         )),
     ];
     let rows = cells
@@ -99,10 +112,11 @@ pub fn section(id: &str, folder: &Folder) -> Result<Vec<Block>> {
                     p.iter()
                         .map(|q| {
                             format!(
-                                "{} ({}, r = {})",
+                                "{} ({}, r = {}; all kept units {})",
                                 q["name"].as_str().unwrap_or("?"),
                                 q["sign"].as_str().unwrap_or("?"),
-                                num(&q["filter_correlation"])
+                                num(&q["filter_correlation"]),
+                                num(&q["span_correlation"])
                             )
                         })
                         .collect::<Vec<_>>()
@@ -136,7 +150,7 @@ pub fn section(id: &str, folder: &Folder) -> Result<Vec<Block>> {
         head: [
             "cell",
             "protocol",
-            "planted pathways (sign, filter r with the unit)",
+            "planted pathways (sign, filter r with the unit; with all kept units)",
             "unit ranked first",
             "best match",
             "filter r",
