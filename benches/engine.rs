@@ -145,11 +145,11 @@ fn main() {
     let _ = std::fs::remove_dir_all(&dir);
 }
 
-/// Forward of the fitted demo draft (18 rank-2 kernels of 40 lags x 15 x 15, then 3 diagonal
+/// Forward of the fitted demo model (18 rank-2 kernels of 40 lags x 15 x 15, then 3 diagonal
 /// blocks of 4 x 6 channels) in the engine and in tract.
 fn structured(x: &ArrayD<f32>) {
-    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("models/synthetic-sensor-fitted-draft.onnx");
-    let model = Model::load(&path, &LoadOptions::default()).expect("load the fitted draft");
+    let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("models/synthetic-sensor-fitted.onnx");
+    let model = Model::load(&path, &LoadOptions::default()).expect("load the fitted demo model");
     let engine = median(&samples(REPEATS, || {
         model.graph.forward(x.clone(), &[]).expect("forward");
     }));
@@ -158,7 +158,7 @@ fn structured(x: &ArrayD<f32>) {
         fast.run(x.clone()).expect("tract forward");
     }));
     println!(
-        "fitted draft forward: engine {:.3} s, tract {:.3} s ({:.2}x)",
+        "fitted demo model forward: engine {:.3} s, tract {:.3} s ({:.2}x)",
         engine.as_secs_f64(),
         tract.as_secs_f64(),
         engine.as_secs_f64() / tract.as_secs_f64()

@@ -11,8 +11,9 @@ use serde_json::json;
 use std::path::Path;
 use std::time::Instant;
 
-/// The demo model, embedded in the binary.
-const MODEL: &[u8] = include_bytes!("../../models/synthetic-sensor-planted.onnx");
+/// The demo model, embedded in the binary: the CNN fitted to the synthetic sensor
+/// (docs/models.md), whose mechanisms the demo finds and compares with the planted ones.
+const MODEL: &[u8] = include_bytes!("../../models/synthetic-sensor-fitted.onnx");
 
 /// Each demo cell with its protocol and the protocol's parameters. The omitted flash keeps the
 /// periods the model card discusses (80 ms cancelled, 100 ms resonant, 120 ms off resonance) and
