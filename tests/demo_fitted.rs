@@ -91,7 +91,7 @@ fn the_top_ranked_unit_of_each_cell_carries_its_planted_pathway() {
         let line = format!(
             "cell {}: unit {}:{} vs planted channel {}: filter r {:.2}, sign right {}",
             c["cell"],
-            c["unit_layer"],
+            c["unit_layer"].as_str().unwrap_or("?"),
             c["unit_channel"],
             c["matched_channel"],
             c["filter_correlation"].as_f64().unwrap(),

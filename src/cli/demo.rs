@@ -8,6 +8,7 @@ use crate::output::{read_json, OutputDir, RunRecord};
 use crate::Result;
 use clap::Args;
 use serde_json::json;
+use std::borrow::Cow;
 use std::path::Path;
 use std::time::Instant;
 
@@ -89,9 +90,9 @@ fn ground_truth(dir: &Path, model: &Path, seed: u64) -> Result<Vec<Recovery>> {
 /// Run the demo.
 pub fn run(a: &DemoArgs) -> Result<()> {
     let t0 = Instant::now();
-    let bytes = match &a.model {
-        Some(path) => std::fs::read(path).map_err(|e| crate::Error::io("read the model", path, e))?,
-        None => MODEL.to_vec(),
+    let bytes: Cow<[u8]> = match &a.model {
+        Some(path) => Cow::Owned(std::fs::read(path).map_err(|e| crate::Error::io("read the model", path, e))?),
+        None => Cow::Borrowed(MODEL),
     };
     let out = OutputDir::create(&a.out)?;
     out.write_bytes("model.onnx", &bytes)?;

@@ -127,26 +127,24 @@ fn sign_word(excitatory: bool) -> &'static str {
 pub fn compare(cell: usize, subcircuit: &Value, path: &Path) -> Result<Recovery> {
     let planted = PLANTED.get(cell).ok_or_else(|| Error::input(path, format!("cell {cell} is not a demo cell")))?;
     let units = subcircuit["units"].as_array().ok_or_else(|| Error::input(path, "has no 'units' list"))?;
-    // First-layer units carry their convolution kernel.
+    // First-layer units carry their convolution kernel; each one's temporal filter is read once.
     let first: Vec<&Value> = units.iter().filter(|u| u["kernel"].is_object()).collect();
-    let top = first
+    let kept: Vec<Vec<f32>> = first
         .iter()
-        .copied()
-        .max_by(|a, b| {
-            let c = |u: &Value| u["conductance"].as_f64().unwrap_or(0.0).abs();
-            c(a).total_cmp(&c(b))
+        .map(|u| {
+            Ok(u["kernel"]["temporal"]
+                .as_array()
+                .ok_or_else(|| Error::input(path, "a unit's kernel has no temporal filter"))?
+                .iter()
+                .map(|v| v.as_f64().unwrap_or(f64::NAN) as f32)
+                .collect())
         })
+        .collect::<Result<_>>()?;
+    let conductance = |u: &Value| u["conductance"].as_f64().unwrap_or(0.0).abs();
+    let top_index = (0..first.len())
+        .max_by(|&a, &b| conductance(first[a]).total_cmp(&conductance(first[b])))
         .ok_or_else(|| Error::input(path, "keeps no first-layer unit: nothing to compare with the planted pathways"))?;
-    let temporal_of = |u: &Value| -> Result<Vec<f32>> {
-        Ok(u["kernel"]["temporal"]
-            .as_array()
-            .ok_or_else(|| Error::input(path, "a unit's kernel has no temporal filter"))?
-            .iter()
-            .map(|v| v.as_f64().unwrap_or(f64::NAN) as f32)
-            .collect())
-    };
-    let temporal = temporal_of(top)?;
-    let kept: Vec<Vec<f32>> = first.iter().map(|u| temporal_of(u)).collect::<Result<_>>()?;
+    let (top, temporal) = (first[top_index], kept[top_index].clone());
     let as64 = |v: &[f32]| v.iter().map(|&x| x as f64).collect::<Vec<_>>();
     let mut filters: Vec<Vec<f32>> = planted.iter().map(|&(p, _)| planted_temporal(p)).collect();
     let pathways: Vec<PlantedPathway> = planted
