@@ -90,35 +90,6 @@ pub struct OneFitArgs {
     /// The hidden layers' nonlinearity.
     #[arg(long, conflicts_with = "recipe", value_enum, default_value_t = Hidden::Softplus)]
     pub hidden: Hidden,
-    /// Give this cell its own recipe (needs --separate-cells): it sits out the --epochs, then
-    /// its channels train afresh and alone for --finish-epochs, with the reversing movie
-    /// throughout.
-    #[arg(long, conflicts_with = "recipe", value_name = "CELL")]
-    pub finish_cell: Option<usize>,
-    /// Epochs of the --finish-cell phase.
-    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().finish_epochs)]
-    pub finish_epochs: usize,
-    /// Frames of each of binary noise, flicker and naturalistic movie per --finish-cell epoch.
-    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().finish_train_frames)]
-    pub finish_train_frames: usize,
-    /// Adam step size of the --finish-cell phase (default: --lr).
-    #[arg(long, conflicts_with = "recipe")]
-    pub finish_lr: Option<f32>,
-    /// Objective of the --finish-cell phase (default: --loss).
-    #[arg(long, conflicts_with = "recipe", value_enum)]
-    pub finish_loss: Option<crate::demo::train::Loss>,
-    /// --sparse-start of the --finish-cell phase's fresh channels (default: --sparse-start).
-    #[arg(long, conflicts_with = "recipe")]
-    pub finish_sparse_start: Option<f64>,
-    /// Reversing movie of the --finish-cell phase (default: --reversal-image).
-    #[arg(long, conflicts_with = "recipe", value_enum)]
-    pub finish_reversal_image: Option<ReversalImage>,
-    /// Revive dead channels in the --finish-cell phase only (--revive: in every phase).
-    #[arg(long, conflicts_with = "recipe")]
-    pub finish_revive: bool,
-    /// Average the --finish-cell phase's tail only (--average: in every phase).
-    #[arg(long, conflicts_with = "recipe")]
-    pub finish_average: bool,
     /// Clip each batch's gradient at this many running means of recent gradient norms (0: no
     /// clipping).
     #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().clip)]
@@ -163,6 +134,10 @@ pub struct OneFitArgs {
     /// (squared Laplacians and second differences; 0: none).
     #[arg(long, conflicts_with = "recipe", value_parser = non_negative, default_value_t = FitSettings::default().smoothness)]
     pub smoothness: f32,
+    /// Raised cosines on log-stretched time that carry the first layer's temporal filters
+    /// (0: one free weight per lag).
+    #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().temporal_basis)]
+    pub temporal_basis: usize,
 }
 
 /// Parse a number that must be zero or more.
@@ -270,15 +245,6 @@ fn one_fit(a: &OneFitArgs) -> FitSettings {
         restart_epochs: a.restart_epochs.min(a.epochs),
         only_cell: a.cell,
         hidden: a.hidden,
-        finish_cell: a.finish_cell,
-        finish_epochs: a.finish_epochs,
-        finish_train_frames: a.finish_train_frames,
-        finish_lr: a.finish_lr,
-        finish_loss: a.finish_loss,
-        finish_sparse_start: a.finish_sparse_start,
-        finish_reversal_image: a.finish_reversal_image,
-        finish_revive: a.finish_revive,
-        finish_average: a.finish_average,
         clip: a.clip,
         movies_every: a.movies_every.max(1),
         stratify: a.stratify,
@@ -291,6 +257,7 @@ fn one_fit(a: &OneFitArgs) -> FitSettings {
         group_sparsity: a.group_sparsity,
         readout_sparsity: a.readout_sparsity,
         smoothness: a.smoothness,
+        temporal_basis: a.temporal_basis,
         ..Default::default()
     }
 }

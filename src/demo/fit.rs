@@ -79,33 +79,6 @@ pub struct FitSettings {
     pub only_cell: Option<usize>,
     /// The hidden layers' nonlinearity.
     pub hidden: Hidden,
-    /// Give this cell its own recipe (needs `separate_cells`): it sits out the joint `epochs`
-    /// (loss weight 0), then its channels start afresh and train alone for `finish_epochs`
-    /// more, with the reversing movie from the start and the finishing phase's own frames, step
-    /// size, loss, sparse start, reversing movie, revive and average (the `finish_*` settings).
-    /// A sparse cell then trains as it does alone (`only_cell`), and the others do not pay for
-    /// its movies.
-    pub finish_cell: Option<usize>,
-    /// Epochs of the finishing phase (see `finish_cell`), with their own step decay.
-    pub finish_epochs: usize,
-    /// Frames of each of binary noise, flicker and naturalistic movie per finishing epoch (the
-    /// object and reversing movies keep their counts).
-    pub finish_train_frames: usize,
-    /// Adam step size of the finishing phase (`None`: `lr`): a sparse cell learnt alone fares
-    /// better with smaller steps (docs/performance.md, session 10, run E2).
-    pub finish_lr: Option<f32>,
-    /// Objective of the finishing phase (`None`: `loss`).
-    pub finish_loss: Option<Loss>,
-    /// `sparse_start` of the finishing phase's fresh channels (`None`: `sparse_start`): a sparse
-    /// cell starts best with channels active on few windows, the resonant cell does not.
-    pub finish_sparse_start: Option<f64>,
-    /// Reversing movie of the finishing phase (`None`: `reversal_image`), so the joint epochs
-    /// can show the other cells one kind of moving bars and the finishing cell another.
-    pub finish_reversal_image: Option<ReversalImage>,
-    /// Revive dead channels in the finishing phase only (`revive` does it in every phase).
-    pub finish_revive: bool,
-    /// Average the finishing phase's tail only (`average` does it in every phase).
-    pub finish_average: bool,
     /// Gradient clipping bound, in running means of recent gradient norms (see [`Clip`]); 0
     /// turns clipping off.
     pub clip: f64,
@@ -174,6 +147,11 @@ pub struct FitSettings {
     /// factors (see [`super::roughness`]; smooth filters are the usual prior of CNN encoding
     /// models, common practice). 0: none.
     pub smoothness: f32,
+    /// Raised cosines on log-stretched time that carry the first layer's temporal filters (see
+    /// [`super::temporal_basis`]): after each optimiser step, at the start and when a channel is
+    /// revived, every temporal factor is projected onto their span, so it has `temporal_basis`
+    /// degrees of freedom instead of one per lag. 0: free lags.
+    pub temporal_basis: usize,
 }
 
 impl Default for FitSettings {
@@ -199,15 +177,6 @@ impl Default for FitSettings {
             restart_epochs: 5,
             only_cell: None,
             hidden: Hidden::Softplus,
-            finish_cell: None,
-            finish_epochs: 0,
-            finish_train_frames: 500,
-            finish_lr: None,
-            finish_loss: None,
-            finish_sparse_start: None,
-            finish_reversal_image: None,
-            finish_revive: false,
-            finish_average: false,
             clip: 3.0,
             movies_every: 1,
             stratify: false,
@@ -219,6 +188,7 @@ impl Default for FitSettings {
             group_sparsity: 0.0,
             readout_sparsity: 0.0,
             smoothness: 0.0,
+            temporal_basis: 0,
         }
     }
 }
@@ -349,6 +319,8 @@ pub(super) struct Student {
     sparse_start: f64,
     /// Leading first-layer channels held fixed (see [`FitSettings::planted_first_layer`]).
     frozen: usize,
+    /// Raised cosines carrying the temporal factors (see [`FitSettings::temporal_basis`]).
+    temporal_basis: usize,
 }
 
 impl Student {
@@ -385,7 +357,9 @@ impl Student {
             positive_readout: s.positive_readout,
             sparse_start: s.sparse_start,
             frozen: 0,
+            temporal_basis: s.temporal_basis,
         };
+        student.project_temporal(0..c1 * RANK);
         student.mask_factors();
         if student.positive_readout {
             student.factors[5].mapv_inplace(f32::abs);
@@ -436,14 +410,6 @@ impl Student {
                 }
             }
         }
-    }
-
-    /// Put cell `cell`'s channels and readout row from `part`, a student with shared channels
-    /// (`channels / CELLS` in each layer, the size of one cell's share) trained on that cell
-    /// alone: the finishing phase trains a cell so and puts it in.
-    fn put_cell(&mut self, cell: usize, part: &Student) {
-        let Some((g1, g2)) = self.per_cell else { return };
-        self.write_part(cell, part, (cell * g1, cell * g2));
     }
 
     /// Write `part` (a student with shared channels trained on cell `cell` alone) as cell
@@ -634,11 +600,26 @@ impl Student {
     /// Keep the readout positive when it must be (see [`FitSettings::positive_readout`]): the
     /// projection after each optimiser step, onto weights of at least [`READOUT_FLOOR`] (then
     /// the cross-cell entries back to zero).
+    /// The projection also keeps the temporal factors in the span of their basis (see
+    /// [`FitSettings::temporal_basis`]).
     fn project(&mut self) {
         if self.positive_readout {
             self.factors[5].mapv_inplace(|v| v.max(READOUT_FLOOR));
             self.factors[6].mapv_inplace(|v| v.max(READOUT_FLOOR));
             self.mask_factors();
+        }
+        self.project_temporal(self.frozen * RANK..self.factors[0].shape()[0]);
+    }
+
+    /// Project the temporal factors `rows` onto the span of the raised cosines (see
+    /// [`FitSettings::temporal_basis`]); nothing with free lags.
+    fn project_temporal(&mut self, rows: impl IntoIterator<Item = usize>) {
+        if self.temporal_basis == 0 {
+            return;
+        }
+        let p = super::temporal_basis::projector(self.temporal_basis, LAGS);
+        for r in rows {
+            super::temporal_basis::project(&p, self.factors[0].index_axis_mut(Axis(0), r));
         }
     }
 
@@ -661,6 +642,7 @@ impl Student {
         let first: Vec<usize> = dead(self, "layer1")?.into_iter().filter(|&c| c >= self.frozen).collect();
         let temporal: Vec<usize> = first.iter().flat_map(|&c| c * RANK..(c + 1) * RANK).collect();
         redraw(&mut self.factors[0], &temporal, LAGS);
+        self.project_temporal(temporal.iter().copied());
         redraw(&mut self.factors[1], &first, RANK * k1 * k1);
         for &c in &first {
             self.factors[2][[c]] = 0.0;
@@ -1349,30 +1331,6 @@ fn choose(r: &[Vec<f64>], separate: bool, only: Option<usize>) -> Vec<usize> {
     }
 }
 
-/// The settings of the finishing phase of `s` (see [`FitSettings::finish_cell`]) for cell
-/// `cell`, whose part of the student has `channels`: its epochs numbered after the main ones,
-/// its own training frames, step size, loss, sparse start and reversing movie (throughout),
-/// and the step decay within the phase.
-fn finishing(s: &FitSettings, cell: usize, channels: (usize, usize)) -> FitSettings {
-    let total = s.epochs + s.finish_epochs;
-    FitSettings {
-        channels,
-        separate_cells: false,
-        only_cell: Some(cell),
-        train_frames: s.finish_train_frames,
-        lr: s.finish_lr.unwrap_or(s.lr),
-        loss: s.finish_loss.unwrap_or(s.loss),
-        sparse_start: s.finish_sparse_start.unwrap_or(s.sparse_start),
-        reversal_image: s.finish_reversal_image.unwrap_or(s.reversal_image),
-        revive: s.revive || s.finish_revive,
-        average: s.average || s.finish_average,
-        epochs: total,
-        decay_after: (s.epochs as f64 + s.decay_after * s.finish_epochs as f64) / total.max(1) as f64,
-        reversal_from: 0.0,
-        ..s.clone()
-    }
-}
-
 /// Fit the CNN; `progress` is called after each epoch.
 /// Every epoch trains on fresh movies (the planted model gives unlimited data); the held-out
 /// movies are never trained on. With restarts, `restarts` students from consecutive seeds train
@@ -1394,18 +1352,17 @@ pub(super) fn fit_student(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<
             s.channels.0, s.channels.1
         )));
     }
-    for (option, cell) in [("--cell", s.only_cell), ("--finish-cell", s.finish_cell)] {
-        if let Some(k) = cell.filter(|&k| k >= CELLS) {
-            return Err(crate::Error::Usage(format!(
-                "fit: {option} {k} names no cell (the sensor has cells 0 to {})",
-                CELLS - 1
-            )));
-        }
+    if let Some(k) = s.only_cell.filter(|&k| k >= CELLS) {
+        return Err(crate::Error::Usage(format!(
+            "fit: --cell {k} names no cell (the sensor has cells 0 to {})",
+            CELLS - 1
+        )));
     }
-    if s.finish_cell.is_some() && !s.separate_cells {
-        return Err(crate::Error::Usage(
-            "fit: --finish-cell trains one cell's own channels, so it needs --separate-cells".into(),
-        ));
+    if s.temporal_basis == 1 || s.temporal_basis > LAGS {
+        return Err(crate::Error::Usage(format!(
+            "fit: --temporal-basis {} must be 0 (free lags) or 2 to {LAGS} raised cosines (one per lag at most)",
+            s.temporal_basis
+        )));
     }
     let teacher = planted()?;
     let h = s.heldout_frames;
@@ -1423,9 +1380,6 @@ pub(super) fn fit_student(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<
     let mut weights = cell_weights(s.loss, &calibration);
     if let Some(k) = s.only_cell {
         weights.iter_mut().enumerate().filter(|&(c, _)| c != k).for_each(|(_, w)| *w = 0.0);
-    }
-    if let Some(k) = s.finish_cell {
-        weights[k] = 0.0;
     }
     let (mut epoch_loss, mut epoch_cell_loss, mut heldout_correlation) = (Vec::new(), Vec::new(), vec![0.0; CELLS]);
     let mut report = |run: &Run, restart: Option<usize>, epoch: usize, (loss, cells): (f64, Vec<f64>)| {
@@ -1482,26 +1436,6 @@ pub(super) fn fit_student(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<
         let losses = run.epoch(s, &teacher, epoch, &weights)?;
         heldout_correlation = report(&run, None, epoch, losses)?;
     }
-    if let Some(cell) = s.finish_cell {
-        // The finishing phase: the cell's channels afresh and alone, on fresh movies numbered
-        // after the main epochs', with the same step decay within the phase.
-        run.student = run.current();
-        run.average = None;
-        let total = s.epochs + s.finish_epochs;
-        let f = finishing(s, cell, (s.channels.0 / CELLS, s.channels.1 / CELLS));
-        let only: Vec<f32> = cell_weights(f.loss, &calibration)
-            .iter()
-            .enumerate()
-            .map(|(c, &w)| if c == cell { w } else { 0.0 })
-            .collect();
-        let mut finish = Run::start(&f, s.seed, &calibration)?;
-        for epoch in s.epochs..total {
-            let losses = finish.epoch(&f, &teacher, epoch, &only)?;
-            run.student.put_cell(cell, &finish.current());
-            run.sync()?;
-            heldout_correlation = report(&run, None, epoch, losses)?;
-        }
-    }
     Ok((
         run.current(),
         FitReport {
@@ -1526,11 +1460,6 @@ mod tests {
         assert_eq!(choose(&r, true, None), vec![0, 1, 1]);
         let e = fit(&FitSettings { only_cell: Some(3), ..Default::default() }, &|_| {}).err().unwrap().to_string();
         assert!(e.contains("--cell 3 names no cell") && e.contains("cells 0 to 2"), "{e}");
-        let e = fit(&FitSettings { finish_cell: Some(1), ..Default::default() }, &|_| {}).err().unwrap().to_string();
-        assert!(e.contains("--finish-cell") && e.contains("needs --separate-cells"), "{e}");
-        let s = FitSettings { finish_cell: Some(5), separate_cells: true, channels: (6, 3), ..Default::default() };
-        let e = fit(&s, &|_| {}).err().unwrap().to_string();
-        assert!(e.contains("--finish-cell 5 names no cell"), "{e}");
     }
 
     #[test]
@@ -1678,40 +1607,6 @@ mod tests {
     }
 
     #[test]
-    fn the_finishing_phase_has_its_own_frames_step_size_and_decay() {
-        let s = FitSettings {
-            epochs: 20,
-            finish_epochs: 10,
-            finish_train_frames: 300,
-            decay_after: 0.5,
-            separate_cells: true,
-            ..Default::default()
-        };
-        let f = finishing(&s, 1, (6, 3));
-        assert_eq!((f.channels, f.only_cell, f.separate_cells, f.train_frames), ((6, 3), Some(1), false, 300));
-        assert_eq!((f.epochs, f.lr), (30, s.lr));
-        // The step drops halfway through the phase: after epoch 25 of 30.
-        assert!((f.decay_after * 30.0 - 25.0).abs() < 1e-9);
-        assert_eq!((f.loss, f.sparse_start, f.reversal_from), (s.loss, s.sparse_start, 0.0));
-        assert_eq!((f.revive, f.average), (false, false));
-        let own = FitSettings {
-            finish_loss: Some(Loss::LogMse),
-            finish_sparse_start: Some(1.0),
-            finish_reversal_image: Some(ReversalImage::Sweeps),
-            finish_revive: true,
-            finish_average: true,
-            ..s.clone()
-        };
-        let g = finishing(&own, 1, (6, 3));
-        assert_eq!((g.loss, g.sparse_start, g.reversal_image), (Loss::LogMse, 1.0, ReversalImage::Sweeps));
-        assert_eq!((g.revive, g.average), (true, true));
-        // Everywhere means in the finishing phase too.
-        let everywhere = finishing(&FitSettings { revive: true, average: true, ..s.clone() }, 1, (6, 3));
-        assert_eq!((everywhere.revive, everywhere.average), (true, true));
-        assert_eq!(finishing(&FitSettings { finish_lr: Some(3e-4), ..s }, 1, (6, 3)).lr, 3e-4);
-    }
-
-    #[test]
     fn a_positive_readout_starts_and_stays_non_negative() {
         let s = FitSettings { channels: (3, 2), positive_readout: true, ..Default::default() };
         let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(4));
@@ -1791,6 +1686,47 @@ mod tests {
         assert!(student.factors[3].index_axis(Axis(0), 2).iter().any(|&w| w != 0.0));
         // Nothing dead, nothing revived.
         assert_eq!(student.clone().revive(&x, &mut rng).unwrap(), (0, 0));
+    }
+
+    #[test]
+    fn a_temporal_basis_keeps_every_temporal_factor_in_its_span() {
+        let s = FitSettings { channels: (6, 3), hidden: Hidden::Relu, temporal_basis: 8, ..Default::default() };
+        let p = crate::demo::temporal_basis::projector(8, LAGS);
+        let outside = |st: &Student| {
+            (0..st.factors[0].shape()[0])
+                .map(|r| {
+                    let f: Vec<f64> = st.factors[0].index_axis(Axis(0), r).iter().map(|&v| f64::from(v)).collect();
+                    let norm = f.iter().map(|v| v * v).sum::<f64>().sqrt();
+                    let off = (0..LAGS)
+                        .map(|i| (p.row(i).iter().zip(&f).map(|(a, b)| a * b).sum::<f64>() - f[i]).powi(2))
+                        .sum::<f64>();
+                    off.sqrt() / norm
+                })
+                .fold(0.0, f64::max)
+        };
+        let mut rng = ChaCha8Rng::seed_from_u64(6);
+        let mut student = Student::init(&s, &[0.5, 1.0, 2.0], &mut rng);
+        assert!(outside(&student) < 1e-5, "at the start: {}", outside(&student));
+        // Free lags start outside the span (a random filter keeps about 8 / 40 of its energy).
+        let free = Student::init(&FitSettings { temporal_basis: 0, ..s.clone() }, &[0.5, 1.0, 2.0], &mut rng);
+        assert!(outside(&free) > 0.5, "free lags: {}", outside(&free));
+        // An optimiser step moves the lags anyhow; the projection after it brings them back.
+        student.factors[0].iter_mut().enumerate().for_each(|(i, v)| *v += 0.05 * ((i * 7 % 11) as f32 - 5.0));
+        assert!(outside(&student) > 0.1);
+        student.project();
+        assert!(outside(&student) < 1e-5, "after a step: {}", outside(&student));
+        // A revived channel's fresh filter lies in the span too.
+        let movie = naturalistic(LAGS + 30, SIZE, SIZE, 2);
+        let x = sample_windows(&[(movie, Array2::zeros((LAGS + 30, CELLS)))], 24, &mut rng).unwrap();
+        student.scale_to_data(&x).unwrap();
+        student.factors[2][[1]] = -1e4;
+        assert_eq!(student.revive(&x, &mut rng).unwrap().0, 1);
+        assert!(outside(&student) < 1e-5, "after reviving: {}", outside(&student));
+        // One cosine, or more than one per lag, is refused by name.
+        for n in [1, LAGS + 1] {
+            let e = fit(&FitSettings { temporal_basis: n, ..Default::default() }, &|_| {}).err().unwrap().to_string();
+            assert!(e.contains(&format!("--temporal-basis {n}")) && e.contains("2 to 40"), "{e}");
+        }
     }
 
     #[test]
@@ -2031,7 +1967,7 @@ mod tests {
     }
 
     #[test]
-    fn a_part_put_into_a_student_with_separate_cells_drives_that_cell_alone() {
+    fn a_part_written_into_a_student_with_separate_cells_drives_that_cell_alone() {
         let s = FitSettings { channels: (6, 3), separate_cells: true, ..Default::default() };
         let whole = Student::init(&s, &[0.5, 1.0, 2.0], &mut ChaCha8Rng::seed_from_u64(1));
         let one_cell = FitSettings { channels: (2, 1), ..Default::default() };
@@ -2043,7 +1979,8 @@ mod tests {
         };
         let (rw, rp) = (rates_of(&whole), rates_of(&part));
         let mut mixed = whole.clone();
-        mixed.put_cell(1, &part);
+        // Cell 1's block: its 2 first-layer and 1 second-layer channels.
+        mixed.write_part(1, &part, (2, 1));
         let rm = rates_of(&mixed);
         // That cell's rates become the part's, the others stay.
         for t in LAGS - 1..movie.shape()[0] {

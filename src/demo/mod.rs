@@ -8,6 +8,7 @@ pub mod planted;
 pub mod recipe;
 pub mod recovered;
 pub mod roughness;
+pub mod temporal_basis;
 pub mod train;
 
 use crate::output::OutputDir;
