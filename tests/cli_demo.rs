@@ -48,9 +48,8 @@ fn demo_runs_every_stage_for_every_cell_and_says_where_it_wrote() {
     assert!(html.contains("Kendall tau"), "baseline stability");
     // Recovered vs planted: each cell's top first-layer unit is matched to one of that cell's
     // planted pathways, and the kept units together are compared with each pathway. The demo
-    // model is the fitted one (issue 6): cells 0 and 2 are recovered (top unit's filter r >= 0.8,
-    // right sign); cell 1's criterion is tests/demo_fitted.rs'
-    // the_top_ranked_unit_of_each_cell_carries_its_planted_pathway (ignored while issue 6 is open).
+    // model is the fitted one (issue 6): every cell is recovered (top unit's filter r >= 0.8,
+    // right sign).
     let truth = json(&out.join("ground-truth/ground_truth.json"));
     for (cell, c) in truth["cells"].as_array().unwrap().iter().enumerate() {
         assert_eq!(c["cell"], cell);
@@ -61,9 +60,7 @@ fn demo_runs_every_stage_for_every_cell_and_says_where_it_wrote() {
             // The top unit is one of the kept units, so the span carries at least |its r|.
             assert!(span >= top.abs() - 1e-6 && span <= 1.0 + 1e-9, "cell {cell}: span {span} vs top {top}");
         }
-        if cell != 1 {
-            assert!(c["recovered"].as_bool().unwrap(), "cell {cell}: {c}");
-        }
+        assert!(c["recovered"].as_bool().unwrap(), "cell {cell}: {c}");
     }
     assert!(html.contains("id=\"m1-recovered\"") && html.contains("Recovered vs planted"));
     assert!(text.contains("closest to the planted resonant pathway"), "{text}");
