@@ -21,6 +21,7 @@ use rand::{RngExt, SeedableRng};
 use rayon::prelude::*;
 use serde::{Deserialize, Serialize};
 use std::path::Path;
+use std::sync::Arc;
 use std::time::Instant;
 
 /// How to fit.
@@ -319,14 +320,15 @@ pub(super) struct Student {
     sparse_start: f64,
     /// Leading first-layer channels held fixed (see [`FitSettings::planted_first_layer`]).
     frozen: usize,
-    /// Raised cosines carrying the temporal factors (see [`FitSettings::temporal_basis`]).
-    temporal_basis: usize,
+    /// Projection onto the raised cosines that carry the temporal factors (see
+    /// [`FitSettings::temporal_basis`]), computed once; `None` with free lags.
+    temporal_projector: Option<Arc<Array2<f64>>>,
 }
 
 impl Student {
     /// The student's shape and settings with no weights (to be given its factors).
     fn without_factors(&self) -> Student {
-        Student { factors: Vec::new(), ..*self }
+        Student { factors: Vec::new(), temporal_projector: self.temporal_projector.clone(), ..*self }
     }
 
     /// Random factors at the usual 1 / sqrt(fan-in) scale; the readout bias starts where each
@@ -357,7 +359,8 @@ impl Student {
             positive_readout: s.positive_readout,
             sparse_start: s.sparse_start,
             frozen: 0,
-            temporal_basis: s.temporal_basis,
+            temporal_projector: (s.temporal_basis > 0)
+                .then(|| Arc::new(super::temporal_basis::projector(s.temporal_basis, LAGS))),
         };
         student.project_temporal(0..c1 * RANK);
         student.mask_factors();
@@ -614,12 +617,9 @@ impl Student {
     /// Project the temporal factors `rows` onto the span of the raised cosines (see
     /// [`FitSettings::temporal_basis`]); nothing with free lags.
     fn project_temporal(&mut self, rows: impl IntoIterator<Item = usize>) {
-        if self.temporal_basis == 0 {
-            return;
-        }
-        let p = super::temporal_basis::projector(self.temporal_basis, LAGS);
+        let Some(p) = &self.temporal_projector else { return };
         for r in rows {
-            super::temporal_basis::project(&p, self.factors[0].index_axis_mut(Axis(0), r));
+            super::temporal_basis::project(p, self.factors[0].index_axis_mut(Axis(0), r));
         }
     }
 
