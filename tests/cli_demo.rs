@@ -78,3 +78,16 @@ fn demo_on_a_model_file_that_is_not_there_names_it_and_writes_nothing() {
     assert!(text.contains("candidate.onnx"), "the error must name the file: {text}");
     assert!(!out.exists(), "nothing may be written when the model cannot be read");
 }
+
+#[test]
+fn demo_models_check_on_a_model_file_that_is_not_there_names_it_and_writes_nothing() {
+    // The maintainers' `demo-models --check` judges a candidate fit and writes nothing, not even
+    // the planted model into the default output folder.
+    let d = tempfile::tempdir().unwrap();
+    let out = d.path().join("models");
+    let missing = d.path().join("candidate.onnx");
+    let (ok, text) = sufficit(&["demo-models", "--check", s(&missing), "--out", s(&out)]);
+    assert!(!ok, "{text}");
+    assert!(text.contains("candidate.onnx"), "the error must name the file: {text}");
+    assert!(!out.exists(), "--check writes nothing");
+}

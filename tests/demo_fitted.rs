@@ -1,9 +1,11 @@
 //! The fitted demo model (models/synthetic-sensor-fitted.onnx, the model `demo` embeds) against
 //! the planted sensor it was fitted to: it predicts movies it never saw, it reproduces each
 //! cell's planted phenomenon by the protocols' own metrics within 25 % of the planted circuit's
-//! value, and the unit sufficit ranks first for each cell carries the matching planted
-//! pathway's filter with the right sign (issue 6). The planted values are measured here, not
-//! copied.
+//! value (issue 6). The planted values are measured here, not copied. The third check, that the
+//! unit sufficit ranks first for each cell carries the matching planted pathway's filter with
+//! the right sign, needs the whole demo run: tests/cli_demo.rs makes it on the embedded model,
+//! which is this file (so the demo runs once in the suite). `sufficit demo-models --check FILE`
+//! prints these checks for a candidate fit.
 //!
 //! Issue 6 is open: the shipped fit (run T8 of docs/performance.md, session 21: each cell fitted
 //! alone by its own recipe, recorded in the model's `.json`; cell 1's temporal filters in a
@@ -13,10 +15,10 @@
 
 mod demo_support;
 
-use demo_support::{load, run};
-use sufficit::cli::{run as run_cli, Cli};
+use demo_support::load;
+use sufficit::demo::checks::{relative_error, PHENOMENA};
 use sufficit::demo::heldout::fresh_correlations;
-use sufficit::demo::{PLANTED_FILE, REVERSAL_BAR};
+use sufficit::demo::PLANTED_FILE;
 
 const FITTED_FILE: &str = "synthetic-sensor-fitted.onnx";
 
@@ -34,71 +36,36 @@ fn the_fitted_model_predicts_fresh_movies_with_r_of_at_least_0_8_per_cell() {
     assert!(short.is_empty(), "{}", short.join("; "));
 }
 
-/// The metric `pick` of `protocol` (with `params`) on the planted and on the fitted model.
-fn both(protocol: &str, params: &[&str], pick: &dyn Fn(&serde_json::Value) -> f64) -> (f64, f64) {
-    let planted = pick(&run(&load(PLANTED_FILE), protocol, params).2);
-    let fitted = pick(&run(&load(FITTED_FILE), protocol, params).2);
-    eprintln!("{protocol}: planted {planted:.3}, fitted {fitted:.3}");
-    (planted, fitted)
-}
-
-/// Within 25 % of the planted value (issue 6).
-fn assert_close(what: &str, (planted, fitted): (f64, f64)) {
-    let off = (fitted - planted).abs() / planted.abs();
-    assert!(off <= 0.25, "{what}: fitted {fitted:.3} is {:.0} % off the planted {planted:.3}", 100.0 * off);
+/// Cell `cell`'s phenomenon (sufficit::demo::checks::PHENOMENA) on the planted and on the
+/// fitted model, within 25 % of the planted value (issue 6).
+fn assert_close(cell: usize) {
+    let p = &PHENOMENA[cell];
+    let planted = p.measure(&load(PLANTED_FILE)).unwrap();
+    let fitted = p.measure(&load(FITTED_FILE)).unwrap();
+    let off = relative_error(planted, fitted);
+    eprintln!("cell {cell}, {}: planted {planted:.3}, fitted {fitted:.3}", p.name);
+    assert!(
+        off <= 0.25,
+        "cell {cell}, {}: fitted {fitted:.3} is {:.0} % off the planted {planted:.3}",
+        p.name,
+        100.0 * off
+    );
 }
 
 #[test]
 fn the_fitted_resonant_cell_answers_the_omitted_flash_as_the_planted_one() {
     // Cell 0 at the resonant period (100 ms): the peak after the omission above baseline.
-    let pick = |s: &serde_json::Value| {
-        let periods = s["cells"][0]["periods"].as_array().unwrap();
-        let p = periods.iter().find(|p| p["period_ms"].as_f64() == Some(100.0)).unwrap();
-        p["peak_above_baseline"].as_f64().unwrap()
-    };
-    assert_close("omitted flash, cell 0", both("omitted-flash", &[], &pick));
+    assert_close(0);
 }
 
 #[test]
 #[ignore = "issue 6 open: the shipped fit's reversal / smooth is 17.1 against the planted 11.97 (+43 %)"]
 fn the_fitted_reversal_cell_answers_the_reversing_bar_as_the_planted_one() {
     // The demo's bar, where the planted ratio sits on a plateau (sufficit::demo::REVERSAL_BAR).
-    let pick = |s: &serde_json::Value| s["cells"][1]["reversal_to_smooth_ratio"].as_f64().unwrap();
-    assert_close("reversing bar, cell 1", both("reversing-bar", &REVERSAL_BAR, &pick));
+    assert_close(1);
 }
 
 #[test]
 fn the_fitted_object_motion_cell_tells_differential_from_global_motion_as_the_planted_one() {
-    let pick = |s: &serde_json::Value| s["cells"][2]["object_motion_index"].as_f64().unwrap();
-    assert_close("differential motion, cell 2", both("differential-motion", &[], &pick));
-}
-
-#[test]
-fn the_top_ranked_unit_of_each_cell_carries_its_planted_pathway() {
-    // The demo (on the embedded fitted model) compares each cell's top first-layer unit with the
-    // cell's planted pathways (sufficit::demo::recovered); issue 6 asks for filter r >= 0.8 with
-    // the right sign for every cell. Every cell is printed before the verdict.
-    use clap::Parser;
-    let d = tempfile::tempdir().unwrap();
-    let out = d.path().join("demo");
-    run_cli(Cli::parse_from(["sufficit", "demo", "--quiet", "--out", out.to_str().unwrap()])).unwrap();
-    let text = std::fs::read_to_string(out.join("ground-truth/ground_truth.json")).unwrap();
-    let truth: serde_json::Value = serde_json::from_str(&text).unwrap();
-    let mut short = Vec::new();
-    for c in truth["cells"].as_array().unwrap() {
-        let line = format!(
-            "cell {}: unit {}:{} vs planted channel {}: filter r {:.2}, sign right {}",
-            c["cell"],
-            c["unit_layer"].as_str().unwrap_or("?"),
-            c["unit_channel"],
-            c["matched_channel"],
-            c["filter_correlation"].as_f64().unwrap(),
-            c["sign_matches"]
-        );
-        eprintln!("{line}");
-        if c["recovered"].as_bool() != Some(true) {
-            short.push(line);
-        }
-    }
-    assert!(short.is_empty(), "not recovered: {}", short.join("; "));
+    assert_close(2);
 }

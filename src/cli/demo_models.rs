@@ -1,5 +1,6 @@
 //! `sufficit demo-models --out models/ [--fit]` (hidden, for maintainers): write the planted
-//! demo model and, with `--fit`, train the fitted demo model on it.
+//! demo model and, with `--fit`, train the fitted demo model on it; `--check FILE` judges a
+//! candidate fit by the fitted model's checks (the top units' recovery: `demo --model FILE`).
 
 use crate::demo::fit::{fit, Epoch, FitSettings, Hidden, ObjectMotion, ReversalImage};
 use crate::demo::recipe;
@@ -25,6 +26,11 @@ pub struct DemoModelsArgs {
     /// which holds the recipe it was fitted with). Excludes the single-fit options below.
     #[arg(long, value_name = "FILE", requires = "fit")]
     pub recipe: Option<std::path::PathBuf>,
+    /// Judge this ONNX file (a candidate fit of the synthetic sensor) by the checks of the
+    /// fitted demo model: held-out correlation per cell on fresh movies, and each cell's
+    /// phenomenon beside the planted sensor's. Prints them and fits nothing.
+    #[arg(long, value_name = "FILE", conflicts_with = "fit")]
+    pub check: Option<std::path::PathBuf>,
     /// The settings of one fit of every cell at once (without --recipe).
     #[command(flatten)]
     pub one: OneFitArgs,
@@ -164,8 +170,11 @@ fn fraction(s: &str) -> Result<f64, String> {
     }
 }
 
-/// Write the models.
+/// Write the models (or, with `--check`, judge a candidate).
 pub fn run(a: &DemoModelsArgs) -> Result<()> {
+    if let Some(path) = &a.check {
+        return check(path);
+    }
     crate::demo::write_planted(&a.out)?;
     println!("wrote {}", a.out.join(crate::demo::PLANTED_FILE).display());
     if !a.fit {
@@ -204,6 +213,34 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
     out.write_bytes(FITTED_FILE, &crate::model::builder::to_bytes(&model))?;
     out.write_json("synthetic-sensor-fitted.json", &record)?;
     println!("wrote {}: {summary}", a.out.join(FITTED_FILE).display());
+    Ok(())
+}
+
+/// Print the checks of the fitted demo model (issue 6) for the model at `path`: held-out r >= 0.8
+/// per cell, each phenomenon within 25 % of the planted sensor's.
+fn check(path: &std::path::Path) -> Result<()> {
+    use crate::demo::checks::{relative_error, PHENOMENA};
+    let planted = crate::model::Model::from_proto(
+        crate::demo::planted::synthetic_sensor(),
+        std::path::Path::new(crate::demo::PLANTED_FILE),
+        &Default::default(),
+    )?;
+    let fitted = crate::model::Model::load(path, &Default::default())?;
+    let verdict = |ok: bool| if ok { "pass" } else { "SHORT" };
+    for (cell, c) in crate::demo::heldout::fresh_correlations(&planted, &fitted)?.iter().enumerate() {
+        println!("cell {cell}: held-out r {:.3} {} ({})", c.pooled, verdict(c.pooled >= 0.8), c.by_movie_line());
+    }
+    for p in &PHENOMENA {
+        let (want, got) = (p.measure(&planted)?, p.measure(&fitted)?);
+        let off = relative_error(want, got);
+        println!(
+            "cell {}: {}: planted {want:.3}, fitted {got:.3} ({:+.0} %) {}",
+            p.cell,
+            p.name,
+            100.0 * (got - want) / want.abs(),
+            verdict(off <= 0.25)
+        );
+    }
     Ok(())
 }
 

@@ -1,6 +1,7 @@
 //! The demo: models whose mechanisms are planted by construction (`planted`), and the files
 //! shipped in `models/`.
 
+pub mod checks;
 pub mod fit;
 pub mod heldout;
 pub mod movies;
