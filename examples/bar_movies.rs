@@ -17,7 +17,7 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
             0 => ("steady", steady_bars(250, SIZE, SIZE, seed)),
             1 => ("steady-lone", steady_lone_bars(250, SIZE, SIZE, seed)),
             2 => ("short", reversing_bars(250, SIZE, SIZE, seed)),
-            _ => ("sweeps", sweeping_bars(250, SIZE, SIZE, seed)),
+            _ => ("sweeps", sweeping_bars(250, SIZE, SIZE, seed, 0.0)),
         };
         let path = out.join(format!("{kind}-{k}.npy"));
         ndarray_npy::write_npy(&path, &movie)?;

@@ -61,6 +61,10 @@ pub struct OneFitArgs {
     /// lone bars swept over the centre, or those sweeps and parallel bars by turns.
     #[arg(long, conflicts_with = "recipe", value_enum, default_value_t = ReversalImage::Pink)]
     pub reversal_image: ReversalImage,
+    /// Share (0 to 1) of the bars swept over the centre drawn at full contrast, the rest at 0.6
+    /// to 1.
+    #[arg(long, conflicts_with = "recipe", value_parser = share, default_value_t = FitSettings::default().full_contrast_sweeps)]
+    pub full_contrast_sweeps: f64,
     /// Passes over the training windows.
     #[arg(long, conflicts_with = "recipe", default_value_t = FitSettings::default().epochs)]
     pub epochs: usize,
@@ -170,6 +174,14 @@ fn fraction(s: &str) -> Result<f64, String> {
     }
 }
 
+/// Parse a share from 0 to 1.
+fn share(s: &str) -> Result<f64, String> {
+    match s.trim().parse::<f64>() {
+        Ok(f) if (0.0..=1.0).contains(&f) => Ok(f),
+        _ => Err(format!("'{s}': expected a share from 0 to 1, such as 0.5")),
+    }
+}
+
 /// Write the models (or, with `--check`, judge a candidate).
 pub fn run(a: &DemoModelsArgs) -> Result<()> {
     if let Some(path) = &a.check {
@@ -272,6 +284,7 @@ fn one_fit(a: &OneFitArgs) -> FitSettings {
         reversal_frames: a.reversal_frames,
         reversal_from: a.reversal_from,
         reversal_image: a.reversal_image,
+        full_contrast_sweeps: a.full_contrast_sweeps,
         epochs: a.epochs,
         lr: a.lr,
         loss: a.loss,
@@ -311,6 +324,8 @@ mod tests {
             assert!(fraction(bad).unwrap_err().contains("fraction of the epochs from 0 to 1"), "{bad}");
         }
         assert_eq!(channels("16, 8"), Ok((16, 8)));
+        assert_eq!(share("0.25"), Ok(0.25));
+        assert!(share("2").unwrap_err().contains("share from 0 to 1"));
         assert!(channels("16").unwrap_err().contains("two positive channel counts"));
         assert!(channels("0,8").is_err());
     }

@@ -47,6 +47,11 @@ pub struct FitSettings {
     pub reversal_from: f64,
     /// What the reversing movie shows (also in the held-out movies).
     pub reversal_image: ReversalImage,
+    /// Share of the bars swept over the centre (`sweeps`, `sweeps-and-bars`) drawn at full
+    /// contrast, the rest at 0.6 to 1 (0: all at 0.6 to 1). The demo's reversing bar is at full
+    /// contrast, where the planted reversal units reach their ceiling: a fit must see bars that
+    /// saturate them to learn it (docs/performance.md, session 22).
+    pub full_contrast_sweeps: f64,
     /// Frames of each held-out movie kind.
     pub heldout_frames: usize,
     /// Passes over the training windows.
@@ -165,6 +170,7 @@ impl Default for FitSettings {
             reversal_frames: 0,
             reversal_from: 0.0,
             reversal_image: ReversalImage::Pink,
+            full_contrast_sweeps: 0.0,
             heldout_frames: 1000,
             epochs: 30,
             batch: 16,
@@ -863,10 +869,11 @@ const REVERSAL_CHUNK: usize = 250;
 fn dataset(
     planted: &Model,
     (frames, object_frames, object_motion): (usize, usize, ObjectMotion),
-    reversal: (usize, ReversalImage),
+    reversal: (usize, ReversalImage, f64),
     seed: u64,
 ) -> Result<Vec<(Array3<f32>, Array2<f32>)>> {
-    let (reversal_frames, image) = reversal;
+    let (reversal_frames, image, full) = reversal;
+    let sweeps = |frames, height, width, seed| sweeping_bars(frames, height, width, seed, full);
     let mut movies = vec![
         binary_noise(frames, SIZE, SIZE, 2, 1.0, seed),
         full_field_flicker(frames, SIZE, SIZE, FLICKER_SD, 5, seed + 1),
@@ -889,22 +896,24 @@ fn dataset(
     // often the reversal cell is driven depends on the image and on the axis of its motion
     // (which a reversal keeps), so one long movie swings from no event to many between draws
     // (numpy replica, 300 lines, 500 frames: above 1 in 0 % to 12.6 % of frames over 8 seeds).
-    let make = |k: usize| match image {
-        ReversalImage::Pink => reversing_texture,
-        ReversalImage::Lines => reversing_lines,
-        ReversalImage::Bars => reversing_bars,
-        ReversalImage::LoneBars => reversing_lone_bars,
-        ReversalImage::MixedBars if k % 2 == 0 => reversing_bars,
-        ReversalImage::MixedBars => reversing_lone_bars,
-        ReversalImage::SteadyBars if k % 2 == 0 => steady_bars,
-        ReversalImage::SteadyBars => steady_lone_bars,
-        ReversalImage::VariedBars if k % 3 == 0 => reversing_bars,
-        ReversalImage::VariedBars if k % 3 == 1 => steady_bars,
-        ReversalImage::VariedBars => steady_lone_bars,
-        ReversalImage::Checkers => reversing_checkers,
-        ReversalImage::Sweeps => sweeping_bars,
-        ReversalImage::SweepsAndBars if k % 2 == 0 => sweeping_bars,
-        ReversalImage::SweepsAndBars => reversing_bars,
+    let make = |k: usize| -> &dyn Fn(usize, usize, usize, u64) -> Array3<f32> {
+        match image {
+            ReversalImage::Pink => &reversing_texture,
+            ReversalImage::Lines => &reversing_lines,
+            ReversalImage::Bars => &reversing_bars,
+            ReversalImage::LoneBars => &reversing_lone_bars,
+            ReversalImage::MixedBars if k % 2 == 0 => &reversing_bars,
+            ReversalImage::MixedBars => &reversing_lone_bars,
+            ReversalImage::SteadyBars if k % 2 == 0 => &steady_bars,
+            ReversalImage::SteadyBars => &steady_lone_bars,
+            ReversalImage::VariedBars if k % 3 == 0 => &reversing_bars,
+            ReversalImage::VariedBars if k % 3 == 1 => &steady_bars,
+            ReversalImage::VariedBars => &steady_lone_bars,
+            ReversalImage::Checkers => &reversing_checkers,
+            ReversalImage::Sweeps => &sweeps,
+            ReversalImage::SweepsAndBars if k % 2 == 0 => &sweeps,
+            ReversalImage::SweepsAndBars => &reversing_bars,
+        }
     };
     for k in 0..reversal_frames.div_ceil(REVERSAL_CHUNK) {
         // Their own seed stream: seed + 3 is the next epoch's noise seed.
@@ -1187,7 +1196,7 @@ impl Run {
             _ => dataset(
                 teacher,
                 (s.train_frames, s.object_frames, s.object_motion),
-                (reversal, s.reversal_image),
+                (reversal, s.reversal_image, s.full_contrast_sweeps),
                 key.0,
             )?,
         };
@@ -1366,15 +1375,19 @@ pub(super) fn fit_student(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<
     }
     let teacher = planted()?;
     let h = s.heldout_frames;
-    let heldout =
-        dataset(&teacher, (h, h, ObjectMotion::Drift), (h, s.reversal_image), s.seed.wrapping_mul(1000) + 500)?;
+    let heldout = dataset(
+        &teacher,
+        (h, h, ObjectMotion::Drift),
+        (h, s.reversal_image, s.full_contrast_sweeps),
+        s.seed.wrapping_mul(1000) + 500,
+    )?;
     // Calibrated on what will be trained on (without the texture, a fit reproduces the runs made
     // before it existed, e.g. run F).
     let calibration_reversal = if s.reversal_frames > 0 { s.reversal_frames.max(1000) } else { 0 };
     let calibration = dataset(
         &teacher,
         (s.train_frames.max(4000), if s.object_frames > 0 { s.object_frames.max(1000) } else { 0 }, s.object_motion),
-        (calibration_reversal, s.reversal_image),
+        (calibration_reversal, s.reversal_image, s.full_contrast_sweeps),
         s.seed.wrapping_mul(1000) + 700,
     )?;
     let mut weights = cell_weights(s.loss, &calibration);
@@ -1591,7 +1604,7 @@ mod tests {
         let data = dataset(
             &planted().unwrap(),
             (LAGS + 1, 0, ObjectMotion::Drift),
-            (3 * REVERSAL_CHUNK, ReversalImage::VariedBars),
+            (3 * REVERSAL_CHUNK, ReversalImage::VariedBars, 0.0),
             seed,
         )
         .unwrap();
@@ -2022,9 +2035,13 @@ mod tests {
     #[test]
     fn the_reversing_frames_come_as_short_movies_each_with_its_own_image() {
         let planted = planted().unwrap();
-        let data =
-            dataset(&planted, (LAGS + 1, 0, ObjectMotion::Drift), (2 * REVERSAL_CHUNK + 60, ReversalImage::Lines), 7)
-                .unwrap();
+        let data = dataset(
+            &planted,
+            (LAGS + 1, 0, ObjectMotion::Drift),
+            (2 * REVERSAL_CHUNK + 60, ReversalImage::Lines, 0.0),
+            7,
+        )
+        .unwrap();
         let frames: Vec<usize> = data.iter().map(|(m, _)| m.shape()[0]).collect();
         assert_eq!(frames, [LAGS + 1, LAGS + 1, LAGS + 1, REVERSAL_CHUNK, REVERSAL_CHUNK, 60]);
         // Different images: the first frames of the reversing movies differ.
@@ -2032,9 +2049,13 @@ mod tests {
         assert!(data.iter().all(|(m, r)| r.nrows() == m.shape()[0]));
         // Mixed bars: parallel bars, then lone bars, by turns, each as drawn alone.
         let seed = 7u64.wrapping_add(1 << 32);
-        let data =
-            dataset(&planted, (LAGS + 1, 0, ObjectMotion::Drift), (2 * REVERSAL_CHUNK, ReversalImage::MixedBars), 7)
-                .unwrap();
+        let data = dataset(
+            &planted,
+            (LAGS + 1, 0, ObjectMotion::Drift),
+            (2 * REVERSAL_CHUNK, ReversalImage::MixedBars, 0.0),
+            7,
+        )
+        .unwrap();
         assert_eq!(data[3].0, reversing_bars(REVERSAL_CHUNK, SIZE, SIZE, seed));
         assert_eq!(data[4].0, reversing_lone_bars(REVERSAL_CHUNK, SIZE, SIZE, seed.wrapping_add(1 << 40)));
     }

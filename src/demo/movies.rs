@@ -317,7 +317,8 @@ pub fn reversing_checkers(frames: usize, height: usize, width: usize, seed: u64)
 
 /// Lone bars swept over the frame's centre and reversed over it, as a lab sweeps bars over a
 /// cell's receptive field once it has found what drives the cell: each sweep draws a bar (1.5
-/// to 4 pixels wide, bright in three sweeps of four, at a contrast of 0.6 to 1), a direction
+/// to 4 pixels wide, bright in three sweeps of four, at full contrast in a share `full` of the
+/// sweeps and else at a contrast of 0.6 to 1; with `full` 0 no draw is spent on it), a direction
 /// across it (horizontal in three sweeps of four, else any of the eight of [`bar_image`]), a
 /// speed of 0.1 to 0.3 pixels per frame (0.5 to 1.5 mm/s at 50 um and 100 Hz) and a turning
 /// point within 8 pixels of the centre. The bar approaches the point for 40 to 120 frames, then
@@ -326,7 +327,7 @@ pub fn reversing_checkers(frames: usize, height: usize, width: usize, seed: u64)
 /// centre with a bar that drives the planted reversal cell (it answers bright bars of 2 pixels
 /// or more in horizontal motion), most reversals here happen over the receptive fields of the
 /// central cells, after a long steady approach.
-pub fn sweeping_bars(frames: usize, height: usize, width: usize, seed: u64) -> Array3<f32> {
+pub fn sweeping_bars(frames: usize, height: usize, width: usize, seed: u64, full: f64) -> Array3<f32> {
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let (cy, cx) = (height as f64 / 2.0, width as f64 / 2.0);
     let mut movie = Array3::zeros((frames, height, width));
@@ -337,7 +338,8 @@ pub fn sweeping_bars(frames: usize, height: usize, width: usize, seed: u64) -> A
         let norm = (a * a + b * b).sqrt();
         let bar = rng.random_range(1.5..4.0);
         let sign = if rng.random_range(0..4) < 3 { 1.0 } else { -1.0 };
-        let contrast = (sign * rng.random_range(0.6..1.0)) as f32;
+        let at_full = full > 0.0 && rng.random_range(0.0..1.0) < full;
+        let contrast = (sign * if at_full { 1.0 } else { rng.random_range(0.6..1.0) }) as f32;
         let speed = rng.random_range(0.1..0.3) * random_sign(&mut rng);
         let turn = rng.random_range(-8.0..8.0);
         let reverses = rng.random_range(0..3) < 2;
@@ -746,7 +748,7 @@ mod tests {
 
     #[test]
     fn sweeping_bars_reverse_over_the_centre_after_a_long_approach() {
-        let m = sweeping_bars(2000, 50, 50, 3);
+        let m = sweeping_bars(2000, 50, 50, 3, 0.0);
         assert_moves_and_reverses(&m, 0.5);
         let turns = reversal_frames(&m);
         assert!(turns.len() >= 5, "{} reversals in 2000 frames", turns.len());
@@ -756,6 +758,28 @@ mod tests {
             let frame = m.index_axis(ndarray::Axis(0), t);
             let central = frame.slice(ndarray::s![14..36, 14..36]).iter().filter(|v| v.abs() > 0.1).count();
             assert!(central >= 10, "reversal at frame {t}: only {central} bar pixels near the centre");
+        }
+    }
+
+    #[test]
+    fn a_share_of_sweeps_at_full_contrast_draws_that_share_and_zero_draws_none() {
+        // The fraction of frames (showing a bar) whose strongest pixel is at full contrast. With
+        // every sweep at full contrast it is the fraction of frames where the bar covers a whole
+        // pixel; a share scales it. Sweeps last 80 to 240 frames, so 20,000 frames hold about 125.
+        let at_full = |share: f64| {
+            let m = sweeping_bars(20_000, 50, 50, 4, share);
+            let peaks: Vec<f32> =
+                m.outer_iter().map(|f| f.iter().fold(0.0f32, |a, v| a.max(v.abs()))).filter(|&p| p > 0.0).collect();
+            assert!(peaks.iter().all(|&p| p <= 1.0), "share {share}: beyond full contrast");
+            peaks.iter().filter(|&&p| p == 1.0).count() as f64 / peaks.len() as f64
+        };
+        assert_eq!(at_full(0.0), 0.0, "without the share every sweep is at 0.6 to 1 (below 1)");
+        let all = at_full(1.0);
+        assert!(all > 0.5, "a bar 1.5 pixels wide or more mostly covers a whole pixel: {all:.2}");
+        for share in [0.25, 0.5] {
+            // A share of sweeps, measured on frames (sweep lengths vary): within 0.1.
+            let got = at_full(share) / all;
+            assert!((got - share).abs() < 0.1, "share {share}: {got:.2} of the full-contrast frames");
         }
     }
 
