@@ -168,17 +168,19 @@ fn channels(s: &str) -> Result<(usize, usize), String> {
 
 /// Parse a fraction from 0 to 1.
 fn fraction(s: &str) -> Result<f64, String> {
-    match s.trim().parse::<f64>() {
-        Ok(f) if (0.0..=1.0).contains(&f) => Ok(f),
-        _ => Err(format!("'{s}': expected a fraction of the epochs from 0 to 1, such as 0.5")),
-    }
+    zero_to_one(s, "a fraction of the epochs")
 }
 
 /// Parse a share from 0 to 1.
 fn share(s: &str) -> Result<f64, String> {
+    zero_to_one(s, "a share")
+}
+
+/// Parse a number from 0 to 1; the message calls it `what`.
+fn zero_to_one(s: &str, what: &str) -> Result<f64, String> {
     match s.trim().parse::<f64>() {
         Ok(f) if (0.0..=1.0).contains(&f) => Ok(f),
-        _ => Err(format!("'{s}': expected a share from 0 to 1, such as 0.5")),
+        _ => Err(format!("'{s}': expected {what} from 0 to 1, such as 0.5")),
     }
 }
 
@@ -232,11 +234,7 @@ pub fn run(a: &DemoModelsArgs) -> Result<()> {
 /// per cell, each phenomenon within 25 % of the planted sensor's.
 fn check(path: &std::path::Path) -> Result<()> {
     use crate::demo::checks::{relative_error, PHENOMENA};
-    let planted = crate::model::Model::from_proto(
-        crate::demo::planted::synthetic_sensor(),
-        std::path::Path::new(crate::demo::PLANTED_FILE),
-        &Default::default(),
-    )?;
+    let planted = crate::demo::planted_model()?;
     let fitted = crate::model::Model::load(path, &Default::default())?;
     let verdict = |ok: bool| if ok { "pass" } else { "SHORT" };
     for (cell, c) in crate::demo::heldout::fresh_correlations(&planted, &fitted)?.iter().enumerate() {

@@ -7,7 +7,7 @@ use super::movies::{
     reversing_lines, reversing_lone_bars, reversing_texture, scene_with_object, steady_bars, steady_lone_bars,
     sweeping_bars,
 };
-use super::planted::{kernel, synthetic_sensor, DS_THRESHOLD, K1, LAGS, SIZE};
+use super::planted::{kernel, DS_THRESHOLD, K1, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss, LOG_OFFSET};
 use crate::model::builder::{int_attr, OnnxBuilder};
 use crate::model::{LoadOptions, Model};
@@ -843,10 +843,6 @@ fn inverse_softplus(y: f32) -> f32 {
     (y + (-(-y).exp_m1()).ln()) as f32
 }
 
-fn planted() -> Result<Model> {
-    Model::from_proto(synthetic_sensor(), Path::new("synthetic-sensor-planted.onnx"), &LoadOptions::default())
-}
-
 /// Movies of the held-out set that are one kind each: noise, flicker, scenes and the scene with
 /// object (the held-out set always has object frames); the reversing movies follow.
 const HELDOUT_SINGLE_KINDS: usize = 4;
@@ -1373,7 +1369,7 @@ pub(super) fn fit_student(s: &FitSettings, progress: &dyn Fn(&Epoch)) -> Result<
             s.temporal_basis
         )));
     }
-    let teacher = planted()?;
+    let teacher = super::planted_model()?;
     let h = s.heldout_frames;
     let heldout = dataset(
         &teacher,
@@ -1602,7 +1598,7 @@ mod tests {
     fn varied_bars_deal_short_steady_and_lone_steady_bars_by_turns() {
         let seed = 11;
         let data = dataset(
-            &planted().unwrap(),
+            &crate::demo::planted_model().unwrap(),
             (LAGS + 1, 0, ObjectMotion::Drift),
             (3 * REVERSAL_CHUNK, ReversalImage::VariedBars, 0.0),
             seed,
@@ -2034,7 +2030,7 @@ mod tests {
 
     #[test]
     fn the_reversing_frames_come_as_short_movies_each_with_its_own_image() {
-        let planted = planted().unwrap();
+        let planted = crate::demo::planted_model().unwrap();
         let data = dataset(
             &planted,
             (LAGS + 1, 0, ObjectMotion::Drift),

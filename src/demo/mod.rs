@@ -29,6 +29,12 @@ pub const PLANTED_FILE: &str = "synthetic-sensor-planted.onnx";
 /// the planted ratio from 10.0 to anywhere between 1.8 and 10.9.
 pub const REVERSAL_BAR: [&str; 3] = ["reversal_um=1500", "speed_um_s=750", "bar_width_um=150"];
 
+/// The planted sensor as a loaded model (built in memory, named after its shipped file): the
+/// teacher of every fit and the reference of every check.
+pub fn planted_model() -> Result<crate::model::Model> {
+    crate::model::Model::from_proto(planted::synthetic_sensor(), Path::new(PLANTED_FILE), &Default::default())
+}
+
 /// Write the planted model into `dir`.
 pub fn write_planted(dir: &Path) -> Result<()> {
     let out = OutputDir::create(dir)?;
