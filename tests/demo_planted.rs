@@ -8,7 +8,7 @@ mod demo_support;
 use cli_support::{json, s, sufficit};
 use demo_support::run;
 use serde_json::Value;
-use sufficit::demo::planted::synthetic_sensor;
+use sufficit::demo::planted::{kernel_terms, synthetic_sensor};
 use sufficit::demo::REVERSAL_BAR;
 use sufficit::model::builder::to_bytes;
 use sufficit::model::Model;
@@ -146,16 +146,13 @@ fn low_rank_copy(rank: usize) -> Model {
     let mut w = floats(init);
     let (lags, area) = (sufficit::demo::planted::LAGS, sufficit::demo::planted::K1.pow(2));
     for pathway in 4..8 {
-        let at = |l: usize, p: usize| pathway * lags * area + l * area + p;
-        let m = nalgebra::DMatrix::<f64>::from_fn(lags, area, |l, p| w[at(l, p)] as f64);
-        let svd = m.svd(true, true);
-        let (u, vt) = (svd.u.unwrap(), svd.v_t.unwrap());
-        let kept = (0..rank).fold(nalgebra::DMatrix::<f64>::zeros(lags, area), |a, k| {
-            a + svd.singular_values[k] * u.column(k) * vt.row(k)
-        });
-        for l in 0..lags {
-            for p in 0..area {
-                w[at(l, p)] = kept[(l, p)] as f32;
+        let kept = &mut w[pathway * lags * area..(pathway + 1) * lags * area];
+        kept.fill(0.0);
+        for (temporal, spatial) in kernel_terms(pathway, rank) {
+            for (l, t) in temporal.iter().enumerate() {
+                for (p, s) in spatial.iter().enumerate() {
+                    kept[l * area + p] += t * s;
+                }
             }
         }
     }

@@ -7,7 +7,7 @@ use super::movies::{
     reversing_lines, reversing_lone_bars, reversing_texture, scene_with_object, steady_bars, steady_lone_bars,
     sweeping_bars,
 };
-use super::planted::{kernel, DS_THRESHOLD, K1, LAGS, SIZE};
+use super::planted::{kernel_terms, DS_THRESHOLD, K1, LAGS, SIZE};
 use super::train::{batch_gradients, Adam, Loss, LOG_OFFSET};
 use crate::model::builder::{int_attr, OnnxBuilder};
 use crate::model::{LoadOptions, Model};
@@ -681,18 +681,12 @@ impl Student {
             )));
         }
         for ch in 0..4 {
-            let k = kernel(4 + ch);
-            let m = nalgebra::DMatrix::from_fn(LAGS, K1 * K1, |l, p| k[[l, p / K1, p % K1]] as f64);
-            let svd = m.svd(true, true);
-            let (Some(u), Some(vt)) = (svd.u, svd.v_t) else {
-                return Err(crate::Error::Usage("fit: no singular vectors of a planted kernel".into()));
-            };
-            for r in 0..RANK {
-                for l in 0..LAGS {
-                    self.factors[0][[ch * RANK + r, l, 0, 0]] = u[(l, r)] as f32;
+            for (r, (temporal, spatial)) in kernel_terms(4 + ch, RANK).into_iter().enumerate() {
+                for (l, v) in temporal.into_iter().enumerate() {
+                    self.factors[0][[ch * RANK + r, l, 0, 0]] = v;
                 }
-                for p in 0..K1 * K1 {
-                    self.factors[1][[ch, r, p / K1, p % K1]] = (svd.singular_values[r] * vt[(r, p)]) as f32;
+                for (p, v) in spatial.into_iter().enumerate() {
+                    self.factors[1][[ch, r, p / K1, p % K1]] = v;
                 }
             }
             self.factors[2][[ch]] = -DS_THRESHOLD;
@@ -1746,7 +1740,7 @@ mod tests {
         let full = student.conv1();
         for ch in 0..4 {
             // Rank 2 holds 98.5 % of each planted kernel's energy: r about 0.99.
-            let planted: Vec<f64> = kernel(4 + ch).iter().map(|&v| v as f64).collect();
+            let planted: Vec<f64> = crate::demo::planted::kernel(4 + ch).iter().map(|&v| v as f64).collect();
             let held: Vec<f64> = full.index_axis(Axis(0), ch).iter().map(|&v| v as f64).collect();
             let r = correlation(&planted, &held);
             assert!(r > 0.99, "channel {ch}: r {r}");

@@ -156,6 +156,26 @@ fn spot_at(sigma: f64, dx: f64) -> Array2<f32> {
     })
 }
 
+/// The `rank` leading terms of `pathway`'s kernel by singular value decomposition of its
+/// `[lags, K1 * K1]` matrix, largest first: each a temporal filter `[lags]` and a spatial map
+/// `[K1 * K1]` with the singular value folded in, so their outer products sum to the kernel's
+/// best rank-`rank` approximation (Eckart & Young, Psychometrika 1936). The fitted student's
+/// first layer has this form, so a planted pathway can be copied into it.
+pub fn kernel_terms(pathway: usize, rank: usize) -> Vec<(Vec<f32>, Vec<f32>)> {
+    let k = kernel(pathway);
+    let m = nalgebra::DMatrix::from_fn(LAGS, K1 * K1, |l, p| k[[l, p / K1, p % K1]] as f64);
+    // nalgebra's `svd` sorts the singular values in descending order.
+    let svd = m.svd(true, true);
+    let (Some(u), Some(vt)) = (svd.u, svd.v_t) else { unreachable!("both factors were asked for") };
+    (0..rank.min(svd.singular_values.len()))
+        .map(|r| {
+            let temporal = (0..LAGS).map(|l| u[(l, r)] as f32).collect();
+            let spatial = (0..K1 * K1).map(|p| (svd.singular_values[r] * vt[(r, p)]) as f32).collect();
+            (temporal, spatial)
+        })
+        .collect()
+}
+
 /// The first-layer kernel of `pathway`, `[lags, K1, K1]`. Separable except for the
 /// direction-selective pathways, whose spot moves with time before the response at DS_SPEED
 /// (rightward: the spot sat further left longer ago), centred at the envelope's peak.
@@ -276,6 +296,28 @@ mod tests {
             let peak = h.iter().fold(0.0f32, |m, v| m.max(v.abs()));
             assert!(total.abs() < 1e-3 * peak, "pathway {pathway}: filter sums to {total} (peak {peak})");
         }
+    }
+
+    #[test]
+    fn a_kernels_terms_sum_back_to_it_and_come_largest_first() {
+        // At full rank the outer products rebuild the matrix exactly (the decomposition's
+        // definition); the terms' energies fall (Eckart & Young: the leading ones are the best).
+        let k = kernel(4);
+        let terms = kernel_terms(4, LAGS);
+        let mut rebuilt = ndarray::Array3::<f32>::zeros((LAGS, K1, K1));
+        for (t, s) in &terms {
+            for (l, tv) in t.iter().enumerate() {
+                for (p, sv) in s.iter().enumerate() {
+                    rebuilt[[l, p / K1, p % K1]] += tv * sv;
+                }
+            }
+        }
+        let peak = k.iter().fold(0.0f32, |m, v| m.max(v.abs()));
+        let worst = (&rebuilt - &k).iter().fold(0.0f32, |m, v| m.max(v.abs()));
+        assert!(worst < 1e-5 * peak, "rebuilt off by {worst} (peak {peak})");
+        let energy: Vec<f32> = terms.iter().map(|(_, s)| s.iter().map(|v| v * v).sum()).collect();
+        assert!(energy.windows(2).all(|e| e[0] >= e[1]), "{energy:?}");
+        assert!(energy[1] > 0.0, "the direction-selective kernel is not separable");
     }
 
     #[test]
