@@ -203,3 +203,49 @@ fn bad_report_input_is_explained_and_nothing_is_written() {
     let html = std::fs::read_to_string(out.join("report.html")).unwrap();
     assert!(html.contains("id=\"m1\"") && html.contains("id=\"m2\""), "one part per model");
 }
+
+#[test]
+fn two_runs_of_one_protocol_are_kept_apart_and_named_by_what_differs() {
+    // A scientist may run one protocol at two settings (here flashes of 50 and 200 ms): they are
+    // different experiments, so the report gives each its own sections, named by the parameter
+    // that tells them apart, with distinct anchors, and says which in each finding.
+    let d = tempfile::tempdir().unwrap();
+    let (model, res) = (d.path().join("planted.onnx"), d.path().join("results"));
+    write_planted(&model);
+    for ms in ["50", "200"] {
+        let stim = res.join(format!("stim-{ms}"));
+        let param = format!("flash_ms={ms}");
+        for args in [
+            vec!["stimulus", "flashes", &param, "contrasts=1", "--model", s(&model), "--out", s(&stim)],
+            vec!["respond", s(&model), s(&stim), "--out", s(&res.join(format!("respond-{ms}")))],
+        ] {
+            let (ok, text) = sufficit(&[&args[..], &["--quiet"]].concat());
+            assert!(ok, "{args:?}: {text}");
+        }
+        let out = res.join(format!("reduce-{ms}"));
+        let args = ["reduce", s(&model), s(&stim), "--layer", "all", "--cell", "0", "--out", s(&out), "--quiet"];
+        let (ok, text) = sufficit(&args);
+        assert!(ok, "{text}");
+    }
+    let out = d.path().join("report");
+    let (ok, text) = sufficit(&["report", s(&res), "--out", s(&out), "--quiet"]);
+    assert!(ok, "{text}");
+    let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    for ms in ["50", "200"] {
+        let label = format!("flashes (flash_ms {ms} ms)");
+        assert_eq!(html.matches(&format!("Protocol: {label}")).count(), 1, "one response section for {label}");
+        assert_eq!(html.matches(&format!("Cell 0: {label}")).count(), 1, "one cell section for {label}");
+    }
+    let ids: Vec<&str> = html.split(" id=\"").skip(1).map(|t| &t[..t.find('"').unwrap()]).collect();
+    let mut unique = ids.clone();
+    unique.sort_unstable();
+    unique.dedup();
+    assert_eq!(unique.len(), ids.len(), "anchor ids repeat: {ids:?}");
+    let findings = json(&out.join("findings.json"));
+    let stimuli: Vec<&str> =
+        findings["findings"].as_array().unwrap().iter().map(|f| f["stimulus"].as_str().unwrap()).collect();
+    assert!(
+        stimuli.contains(&"flashes (flash_ms 50 ms)") && stimuli.contains(&"flashes (flash_ms 200 ms)"),
+        "{stimuli:?}"
+    );
+}

@@ -600,10 +600,22 @@ impl Student {
 
     /// The value named `name` in the training graph run on the windows `x`.
     fn value_of(&self, x: &Tensor, name: &str) -> Result<Tensor> {
+        let [v] = self.values_of(x, [name])?;
+        Ok(v)
+    }
+
+    /// The values named `names` in the training graph, from one run on the windows `x`.
+    fn values_of<const N: usize>(&self, x: &Tensor, names: [&str; N]) -> Result<[Tensor; N]> {
         let model = Model::from_proto(self.training_proto(), Path::new("student.onnx"), &LoadOptions::default())?;
-        let id =
-            model.graph.find(name).ok_or_else(|| crate::Error::Usage(format!("fit: the student has no '{name}'")))?;
-        Ok(model.graph.forward(x.clone(), &[])?.value(id).clone())
+        let ids = names.map(|name| {
+            model.graph.find(name).ok_or_else(|| crate::Error::Usage(format!("fit: the student has no '{name}'")))
+        });
+        let run = model.graph.forward(x.clone(), &[])?;
+        let mut values = Vec::with_capacity(N);
+        for id in ids {
+            values.push(run.value(id?).clone());
+        }
+        Ok(values.try_into().unwrap_or_else(|_| unreachable!("one value per name")))
     }
 
     /// Keep the readout positive when it must be (see [`FitSettings::positive_readout`]): the
@@ -635,17 +647,19 @@ impl Student {
     fn revive(&mut self, x: &Tensor, rng: &mut ChaCha8Rng) -> Result<(usize, usize)> {
         let (c1, k1) = (self.factors[1].shape()[0], self.factors[1].shape()[2]);
         let k2 = self.factors[3].shape()[2];
-        let dead = |student: &Student, layer: &str| -> Result<Vec<usize>> {
-            let v = student.value_of(x, layer)?;
-            Ok((0..v.shape()[1]).filter(|&c| v.index_axis(Axis(1), c).iter().all(|&a| a <= DEAD)).collect())
+        // One run finds both layers' dead channels: reviving a first-layer channel zeroes its
+        // outgoing weights, so the second layer's values are the same after it.
+        let dead = |v: &Tensor| -> Vec<usize> {
+            (0..v.shape()[1]).filter(|&c| v.index_axis(Axis(1), c).iter().all(|&a| a <= DEAD)).collect()
         };
+        let [layer1, layer2] = self.values_of(x, ["layer1", "layer2"])?;
         let mut redraw = |t: &mut Tensor, rows: &[usize], fan_in: usize| {
             for &r in rows {
                 let fresh = uniform(&t.shape()[1..], fan_in, rng);
                 t.index_axis_mut(Axis(0), r).assign(&fresh);
             }
         };
-        let first: Vec<usize> = dead(self, "layer1")?.into_iter().filter(|&c| c >= self.frozen).collect();
+        let first: Vec<usize> = dead(&layer1).into_iter().filter(|&c| c >= self.frozen).collect();
         let temporal: Vec<usize> = first.iter().flat_map(|&c| c * RANK..(c + 1) * RANK).collect();
         redraw(&mut self.factors[0], &temporal, LAGS);
         self.project_temporal(temporal.iter().copied());
@@ -655,7 +669,7 @@ impl Student {
             self.factors[3].index_axis_mut(Axis(1), c).fill(0.0);
         }
         self.scale_channels(x, 1, &first)?;
-        let second = dead(self, "layer2")?;
+        let second = dead(&layer2);
         redraw(&mut self.factors[3], &second, c1 * k2 * k2);
         self.mask_factors();
         for &c in &second {

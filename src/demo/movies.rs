@@ -186,8 +186,8 @@ pub fn jittering_scene_with_object(frames: usize, height: usize, width: usize, s
             at = ((at.0 + dy).rem_euclid(size as f64), (at.1 + dx).rem_euclid(size as f64));
             // The scene's content moves by minus its view's step; a disk still in the world with it.
             let (oy, ox) = if own { step(&mut rng) } else { (-dy, -dx) };
-            y = reflect(y + oy, 0.0, cy, reach).0;
-            x = reflect(x + ox, 0.0, cx, reach).0;
+            y = keep_within(y + oy, cy, reach);
+            x = keep_within(x + ox, cx, reach);
             let mut frame = movie.index_axis_mut(ndarray::Axis(0), frame_index);
             render(&scene, at, frame.view_mut());
             Disk { texture: &texture, offset, centre: (y, x), radius }.paste(frame, &mut view);
@@ -197,12 +197,22 @@ pub fn jittering_scene_with_object(frames: usize, height: usize, width: usize, s
     movie
 }
 
-/// Position and velocity after reflecting `p` back into `centre +- reach`.
+/// Position and velocity after reflecting `p` back into `centre +- reach`: a position outside
+/// is put on the edge and the velocity turns.
 fn reflect(p: f64, v: f64, centre: f64, reach: f64) -> (f64, f64) {
     if (p - centre).abs() > reach {
-        (centre + (p - centre).clamp(-reach, reach), -v)
+        (keep_within(p, centre, reach), -v)
     } else {
         (p, v)
+    }
+}
+
+/// `p` put on the nearer edge of `centre +- reach` when it is outside, else `p` itself.
+fn keep_within(p: f64, centre: f64, reach: f64) -> f64 {
+    if (p - centre).abs() > reach {
+        centre + (p - centre).clamp(-reach, reach)
+    } else {
+        p
     }
 }
 

@@ -13,6 +13,9 @@ pub struct Finding {
     pub cell: usize,
     /// The protocol.
     pub protocol: String,
+    /// The stimulus: the protocol's name, and where the report holds several runs of that
+    /// protocol, the parameters that tell this one apart (see `report::labels`).
+    pub stimulus: String,
     /// The sentence.
     pub text: String,
     /// Every number shown in `text`.
@@ -87,21 +90,31 @@ impl<'a> Sentence<'a> {
     }
 }
 
-/// The sentences for one cell and protocol from its reduction, knock-outs and attribution.
+/// The sentences for one cell and stimulus (of `protocol`, labelled `stimulus`) from its
+/// reduction, knock-outs and attribution.
 pub fn findings(
     cell: usize,
     protocol: &str,
+    stimulus: &str,
     reduction: Option<&Folder>,
     knockouts: Option<&Folder>,
     attribution: Option<&Folder>,
 ) -> Vec<Finding> {
     let mut out = Vec::new();
     let mut push = |s: Sentence| {
-        out.push(Finding { cell, protocol: protocol.into(), text: s.text, numbers: s.numbers });
+        out.push(Finding {
+            cell,
+            protocol: protocol.into(),
+            stimulus: stimulus.into(),
+            text: s.text,
+            numbers: s.numbers,
+        });
     };
     if let Some(r) = reduction {
         let mut s = Sentence::new(r);
-        s.text(&format!("Cell {cell}'s {} is carried by ", response_phrase(protocol)));
+        let phrase = response_phrase(protocol);
+        let phrase = if stimulus == protocol { phrase } else { format!("{phrase} in {stimulus}") };
+        s.text(&format!("Cell {cell}'s {phrase} is carried by "));
         let ok = s.number("/size/kept", 1.0, 0) && s.text(" of ").number("/size/of", 1.0, 0);
         s.text(" units (fidelity ");
         let ok = ok && s.number("/fidelity/fve", 1.0, 2);
@@ -159,7 +172,7 @@ mod tests {
             Kind::Knockouts,
             serde_json::json!({"knockouts": [{"units": ["conv1:5"], "relative_rms_change": 0.812}]}),
         );
-        let f = findings(3, "omitted-flash", Some(&r), Some(&k), None);
+        let f = findings(3, "omitted-flash", "omitted-flash", Some(&r), Some(&k), None);
         assert_eq!(
             f[0].text,
             "Cell 3's response after the omitted flash is carried by 2 of 16 units (fidelity 0.94 as fraction of variance explained)."
@@ -172,6 +185,19 @@ mod tests {
     #[test]
     fn a_missing_value_drops_the_sentence() {
         let r = folder(Kind::Reduction, serde_json::json!({"size": {"kept": 2}}));
-        assert!(findings(0, "steps", Some(&r), None, None).is_empty());
+        assert!(findings(0, "steps", "steps", Some(&r), None, None).is_empty());
+    }
+
+    #[test]
+    fn a_stimulus_told_apart_by_its_parameters_is_named_in_the_sentence() {
+        let r = folder(Kind::Reduction, serde_json::json!({"size": {"kept": 1, "of": 8}, "fidelity": {"fve": 0.5}}));
+        let f = findings(1, "omitted-flash", "omitted-flash (period_ms 150 ms)", Some(&r), None, None);
+        assert!(f[0]
+            .text
+            .starts_with("Cell 1's response after the omitted flash in omitted-flash (period_ms 150 ms) is"));
+        assert_eq!(
+            (f[0].protocol.as_str(), f[0].stimulus.as_str()),
+            ("omitted-flash", "omitted-flash (period_ms 150 ms)")
+        );
     }
 }

@@ -7,6 +7,7 @@ pub mod figures;
 pub mod findings;
 pub mod gather;
 pub mod ground_truth;
+pub mod labels;
 pub mod sections;
 
 use crate::output::OutputDir;
@@ -14,6 +15,7 @@ use crate::Result;
 use doc::Block;
 use findings::Finding;
 use gather::{Folder, Gathered, Kind};
+use labels::{stimulus_key, Labels};
 use rayon::prelude::*;
 use sections::{meta_of, protocol_of};
 use std::path::PathBuf;
@@ -43,9 +45,23 @@ struct CellResults<'a> {
     knockouts: Vec<&'a Folder>,
 }
 
-/// Slug for anchors.
+/// A stimulus's protocol and its label in the report (see [`Labels`]).
+struct Named {
+    protocol: String,
+    label: String,
+}
+
+/// Slug for anchors: lower-case letters and digits, one hyphen for each run of anything else.
 fn slug(s: &str) -> String {
-    s.chars().map(|c| if c.is_ascii_alphanumeric() { c.to_ascii_lowercase() } else { '-' }).collect()
+    let mut out = String::new();
+    for c in s.chars() {
+        if c.is_ascii_alphanumeric() {
+            out.push(c.to_ascii_lowercase());
+        } else if !out.ends_with('-') {
+            out.push('-');
+        }
+    }
+    out.trim_end_matches('-').to_string()
 }
 
 /// Build the report's blocks and findings from gathered results.
@@ -63,38 +79,44 @@ pub fn compose(g: &Gathered) -> Result<(Vec<Block>, Vec<Finding>)> {
                 text: format!("Model {} (SHA-256 {})", m + 1, &sha[..12.min(sha.len())]),
             });
         }
-        // Cells and protocols with analyses.
-        let mut cells: Vec<((usize, String), CellResults)> = Vec::new();
+        // Cells and stimuli with analyses: one section per cell and stimulus, named by the
+        // stimulus's label (its protocol, and what tells it from others of that protocol).
+        let labels = Labels::new(folders.iter(), g);
+        let mut cells: Vec<((usize, String), Named, CellResults)> = Vec::new();
         for f in folders.iter().filter(|f| matches!(f.kind, Kind::Attribution | Kind::Reduction | Kind::Knockouts)) {
             let Some(cell) = f.cell() else { continue };
-            let protocol = protocol_of(f, g);
-            let key = (cell, protocol);
-            let i = match cells.iter().position(|(k, _)| *k == key) {
+            let key = (cell, stimulus_key(f, g));
+            let i = match cells.iter().position(|(k, _, _)| *k == key) {
                 Some(i) => i,
                 None => {
-                    cells.push((key, CellResults::default()));
+                    cells.push((
+                        key,
+                        Named { protocol: protocol_of(f, g), label: labels.of(f, g) },
+                        CellResults::default(),
+                    ));
                     cells.len() - 1
                 }
             };
-            let slot = &mut cells[i].1;
+            let slot = &mut cells[i].2;
             match f.kind {
                 Kind::Attribution => slot.attribution.push(f),
                 Kind::Reduction => slot.reduction.push(f),
                 _ => slot.knockouts.push(f),
             }
         }
-        cells.sort_by(|a, b| a.0.cmp(&b.0));
+        cells.sort_by(|a, b| (a.0 .0, &a.1.label).cmp(&(b.0 .0, &b.1.label)));
 
         blocks.push(Block::Heading {
             level: 2,
             id: format!("{p}-findings"),
             text: "What the model does, in sentences".into(),
         });
-        for ((cell, protocol), r) in &cells {
+        for ((cell, _), named, r) in &cells {
             let knock = r.knockouts.first().copied();
             let f = findings::findings(
                 *cell,
-                protocol,
+                &named.protocol,
+                &named.label,
                 r.reduction.first().copied(),
                 knock,
                 r.attribution.first().copied(),
@@ -123,12 +145,12 @@ pub fn compose(g: &Gathered) -> Result<(Vec<Block>, Vec<Finding>)> {
                 id: format!("{p}-protocols"),
                 text: "Protocols and responses".into(),
             });
-            let parts: Vec<Vec<Block>> = responses
+            let named: Vec<(String, &Folder)> = responses.iter().map(|r| (labels.of(r, g), *r)).collect();
+            let ids = distinct(named.iter().map(|(label, _)| format!("{p}-protocol-{}", slug(label))));
+            let parts: Vec<Vec<Block>> = named
                 .par_iter()
-                .map(|r| {
-                    let protocol = protocol_of(r, g);
-                    sections::protocol_section(&format!("{p}-protocol-{}", slug(&protocol)), r, g)
-                })
+                .zip(ids)
+                .map(|((label, r), id)| sections::protocol_section(&id, label, r, g))
                 .collect::<Result<_>>()?;
             blocks.extend(parts.into_iter().flatten());
         }
@@ -139,11 +161,11 @@ pub fn compose(g: &Gathered) -> Result<(Vec<Block>, Vec<Finding>)> {
                 id: format!("{p}-cells"),
                 text: "Cells: attribution, circuit, knock-outs".into(),
             });
+            let ids = distinct(cells.iter().map(|((cell, _), n, _)| format!("{p}-cell-{cell}-{}", slug(&n.label))));
             let parts: Vec<Vec<Block>> = cells
                 .par_iter()
-                .map(|((cell, protocol), r)| {
-                    cell_section(&format!("{p}-cell-{cell}-{}", slug(protocol)), *cell, protocol, r, g)
-                })
+                .zip(ids)
+                .map(|(((cell, _), n, r), id)| cell_section(&id, *cell, &n.label, r, g))
                 .collect::<Result<_>>()?;
             blocks.extend(parts.into_iter().flatten());
         }
@@ -196,6 +218,18 @@ fn cell_section(id: &str, cell: usize, protocol: &str, r: &CellResults, g: &Gath
         out.push(sections::knockout_table(doc));
     }
     Ok(out)
+}
+
+/// The anchor ids `bases`, each made distinct by [`numbered`] when an earlier one is the same.
+fn distinct(bases: impl Iterator<Item = String>) -> Vec<String> {
+    let mut seen: std::collections::BTreeMap<String, usize> = Default::default();
+    bases
+        .map(|base| {
+            let n = seen.entry(base.clone()).or_default();
+            *n += 1;
+            numbered(&base, *n - 1)
+        })
+        .collect()
 }
 
 /// `base` for the first of a kind, `base-2`, `base-3`... after.

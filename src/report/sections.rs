@@ -70,7 +70,7 @@ pub fn sig(v: f64) -> String {
 /// The stimulus folder a result was computed on: the path in its run.json, or, when that folder
 /// has moved (results merged or copied), the gathered stimulus folder whose last three path
 /// components match it.
-fn stimulus_dir(folder: &Folder, g: &Gathered) -> Option<PathBuf> {
+pub(super) fn stimulus_dir(folder: &Folder, g: &Gathered) -> Option<PathBuf> {
     let dir = folder.stimulus_dir()?;
     let tail = |p: &Path| p.components().rev().take(3).map(|c| c.as_os_str().to_owned()).collect::<Vec<_>>();
     let found = g.stimuli.get(&canonical(&dir)).map(|f| f.dir.clone()).filter(|d| d.exists());
@@ -113,11 +113,11 @@ fn strip_frames(stim: &Stimulus) -> Vec<usize> {
     frames
 }
 
-/// Section for one `respond` folder: stimulus strip, responses with events, metrics per cell.
-pub fn protocol_section(id: &str, r: &Folder, g: &Gathered) -> Result<Vec<Block>> {
+/// Section for one `respond` folder, headed by its stimulus's `label`: stimulus strip, responses with
+/// events, metrics per cell.
+pub fn protocol_section(id: &str, label: &str, r: &Folder, g: &Gathered) -> Result<Vec<Block>> {
     let stim = stimulus_of(r, g);
-    let protocol = protocol_of(r, g);
-    let mut out = vec![Block::Heading { level: 3, id: id.into(), text: format!("Protocol: {protocol}") }];
+    let mut out = vec![Block::Heading { level: 3, id: id.into(), text: format!("Protocol: {label}") }];
     let rates = npy2(&r.file("responses.npy"))?;
     match &stim {
         Some(s) => {
