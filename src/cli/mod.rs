@@ -76,14 +76,21 @@ pub struct Common {
     pub max_memory: Option<String>,
 }
 
+/// Size the global rayon pool that every command's parallel work shares (`--threads N`; left
+/// at one thread per core when not given).
+fn set_threads(threads: Option<usize>) -> Result<()> {
+    if let Some(n) = threads {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(n.max(1))
+            .build_global()
+            .map_err(|e| Error::Usage(format!("--threads {n}: {e}")))?;
+    }
+    Ok(())
+}
+
 impl Common {
     fn apply(&self) -> Result<()> {
-        if let Some(n) = self.threads {
-            rayon::ThreadPoolBuilder::new()
-                .num_threads(n.max(1))
-                .build_global()
-                .map_err(|e| Error::Usage(format!("--threads {n}: {e}")))?;
-        }
+        set_threads(self.threads)?;
         if let Some(m) = &self.max_memory {
             crate::memory::set_limit(crate::memory::parse_size(m)?, rayon::current_num_threads());
         }

@@ -71,12 +71,7 @@ fn window_seconds(p: &plan::Plan) -> Result<Vec<f64>> {
 /// Validate, then check or run the study, then write the report.
 pub fn run_study(a: &StudyArgs) -> Result<()> {
     let threads = a.threads.unwrap_or_else(rayon::current_num_threads).max(1);
-    if let Some(n) = a.threads {
-        rayon::ThreadPoolBuilder::new()
-            .num_threads(n.max(1))
-            .build_global()
-            .map_err(|e| Error::Usage(format!("--threads {n}: {e}")))?;
-    }
+    super::set_threads(a.threads)?;
     let max = a
         .max_memory
         .as_deref()
