@@ -18,10 +18,19 @@ pub fn stimulus_key(folder: &Folder, g: &Gathered) -> String {
     }
 }
 
+/// A stimulus's protocol and its label in the report.
+#[derive(Debug, Clone)]
+pub struct Named {
+    /// The protocol's name.
+    pub protocol: String,
+    /// The protocol's name, with what tells this stimulus from others of that protocol.
+    pub label: String,
+}
+
 /// The label of every stimulus one model's results were computed on, by [`stimulus_key`].
 #[derive(Debug, Default)]
 pub struct Labels {
-    by_key: BTreeMap<String, String>,
+    by_key: BTreeMap<String, Named>,
 }
 
 impl Labels {
@@ -35,7 +44,8 @@ impl Labels {
         let mut by_key = BTreeMap::new();
         for (protocol, stimuli) in by_protocol {
             if stimuli.len() == 1 {
-                by_key.extend(stimuli.into_keys().map(|k| (k, protocol.clone())));
+                let named = Named { protocol: protocol.clone(), label: protocol.clone() };
+                by_key.extend(stimuli.into_keys().map(|k| (k, named.clone())));
                 continue;
             }
             let metas: Vec<(String, Option<Meta>)> = stimuli.into_iter().map(|(k, f)| (k, meta_of(f, g))).collect();
@@ -52,7 +62,7 @@ impl Labels {
                     Some(m) if seeds_differ => format!("seed {}", m.seed),
                     _ => key.clone(),
                 };
-                by_key.insert(key, format!("{protocol} ({tell})"));
+                by_key.insert(key, Named { protocol: protocol.clone(), label: format!("{protocol} ({tell})") });
             }
         }
         Labels { by_key }
@@ -60,7 +70,16 @@ impl Labels {
 
     /// The label of the stimulus `folder` was computed on (its protocol when not labelled).
     pub fn of(&self, folder: &Folder, g: &Gathered) -> String {
-        self.by_key.get(&stimulus_key(folder, g)).cloned().unwrap_or_else(|| protocol_of(folder, g))
+        self.named(&stimulus_key(folder, g), folder, g).label
+    }
+
+    /// The protocol and label of the stimulus with [`stimulus_key`] `key`, which `folder` was
+    /// computed on (its protocol for both when not labelled).
+    pub fn named(&self, key: &str, folder: &Folder, g: &Gathered) -> Named {
+        self.by_key.get(key).cloned().unwrap_or_else(|| {
+            let protocol = protocol_of(folder, g);
+            Named { label: protocol.clone(), protocol }
+        })
     }
 }
 

@@ -15,9 +15,9 @@ use crate::Result;
 use doc::Block;
 use findings::Finding;
 use gather::{Folder, Gathered, Kind};
-use labels::{stimulus_key, Labels};
+use labels::{stimulus_key, Labels, Named};
 use rayon::prelude::*;
-use sections::{meta_of, protocol_of};
+use sections::meta_of;
 use std::path::PathBuf;
 
 /// The caution every report carries.
@@ -43,12 +43,6 @@ struct CellResults<'a> {
     attribution: Vec<&'a Folder>,
     reduction: Vec<&'a Folder>,
     knockouts: Vec<&'a Folder>,
-}
-
-/// A stimulus's protocol and its label in the report (see [`Labels`]).
-struct Named {
-    protocol: String,
-    label: String,
 }
 
 /// Slug for anchors: lower-case letters and digits, one hyphen for each run of anything else.
@@ -89,11 +83,8 @@ pub fn compose(g: &Gathered) -> Result<(Vec<Block>, Vec<Finding>)> {
             let i = match cells.iter().position(|(k, _, _)| *k == key) {
                 Some(i) => i,
                 None => {
-                    cells.push((
-                        key,
-                        Named { protocol: protocol_of(f, g), label: labels.of(f, g) },
-                        CellResults::default(),
-                    ));
+                    let named = labels.named(&key.1, f, g);
+                    cells.push((key, named, CellResults::default()));
                     cells.len() - 1
                 }
             };
